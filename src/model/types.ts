@@ -1,0 +1,103 @@
+/**
+ * Contracts of the numeric core (src/model). Pure data: no I/O, no clock, no logger.
+ * All matrices are dense, row-major Float64Array with explicit dimensions.
+ */
+
+/** Dense row-major matrix: element (i, j) is data[i * cols + j]. */
+export interface Dense {
+  data: Float64Array;
+  rows: number;
+  cols: number;
+}
+
+/** How Gaussian widths are parameterised. */
+export type WidthMode = 'shared' | 'per-centre';
+
+export interface KMeansOptions {
+  nCentres: number;
+  /** Independent k-means++ restarts; the lowest within-cluster sum of squares wins. */
+  restarts: number;
+  /** Upper bound on Lloyd passes per restart. */
+  maxPasses: number;
+  /** Stop when the summed squared centre shift falls below tol * mean feature variance. */
+  tol: number;
+  /** Seed for the seeded random source (mulberry32). */
+  seed: number;
+  /** Warm start: initial centres (nCentres x nFeatures); restarts are skipped when given. */
+  initialCentres?: Dense;
+  /** Run Lloyd on a seeded subsample of this many rows, then assign every row (0 = off). */
+  subsampleRows?: number;
+}
+
+export interface KMeansResult {
+  centres: Dense;
+  labels: Int32Array;
+  /** Within-cluster sum of squared distances (inertia). */
+  inertia: number;
+  /** Lloyd passes of the winning restart. */
+  passes: number;
+  /** Squared distances of every sample to every centre (nSamples x nCentres). */
+  dist2: Dense;
+}
+
+export interface FitOptions {
+  nCentres: number;
+  widthMode: WidthMode;
+  /** Ridge penalty, relative: lambda = ridge * trace(Phi^T Phi) / nColumns. */
+  ridge: number;
+  /** Add linear terms of the inputs beside the Gaussian units. */
+  linearTerms: boolean;
+  restarts: number;
+  maxPasses: number;
+  /** Maximum alternating (weights <-> widths) iterations. */
+  widthIterations: number;
+  /** Stop the alternation when relative validation improvement is below this. */
+  widthTol: number;
+  /** Share of the (time-ordered) training rows held back at the end as the validation tail. */
+  validationFraction: number;
+  seed: number;
+  /** Previous model for a warm start (centres and widths reused when dimensions match). */
+  warmStart?: RbfModel;
+  subsampleRows?: number;
+}
+
+/** A fitted network as plain data; JSON round-trips give bit-identical predictions. */
+export interface RbfModel {
+  version: 1;
+  nFeatures: number;
+  nCentres: number;
+  nOutputs: number;
+  widthMode: WidthMode;
+  linearTerms: boolean;
+  /** nCentres x nFeatures, row-major. */
+  centres: number[];
+  /** One gamma per centre (all equal in shared mode). */
+  gammas: number[];
+  /** (1 + nCentres + (linearTerms ? nFeatures : 0)) x nOutputs, row-major: bias row, Gaussian rows, linear rows. */
+  weights: number[];
+  seed: number;
+  /** Optional metadata set by callers (training span, feature scaling...). */
+  meta?: Record<string, unknown>;
+}
+
+export interface FitHistoryEntry {
+  iteration: number;
+  trainMse: number;
+  validationMse: number;
+  accepted: boolean;
+}
+
+export interface FitReport {
+  kmeansPasses: number;
+  inertia: number;
+  history: FitHistoryEntry[];
+  trainMse: number;
+  validationMse: number;
+}
+
+export interface Prediction {
+  /** nSamples x nOutputs. */
+  y: Dense;
+  /** Per sample: the largest Gaussian activation max_k exp(-gamma_k |x - mu_k|^2), in (0, 1]; small = novel input. */
+  novelty: Float64Array;
+}
