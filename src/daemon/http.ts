@@ -12,6 +12,7 @@
 import http from 'node:http';
 import { readFileSync } from 'node:fs';
 import { createRequire } from 'node:module';
+import path from 'node:path';
 import type { AddressInfo } from 'node:net';
 import type { Logger } from 'pino';
 import type { DaemonMetrics } from './metrics.ts';
@@ -51,7 +52,8 @@ interface Asset {
 
 function loadAssets(): Map<string, Asset> {
   const assets = new Map<string, Asset>();
-  const chartPath = require.resolve('chart.js/dist/chart.umd.min.js');
+  // chart.js exports no subpath for its UMD build; it sits beside the CommonJS entry.
+  const chartPath = path.join(path.dirname(require.resolve('chart.js')), 'chart.umd.min.js');
   assets.set('/assets/chart.umd.min.js', { body: readFileSync(chartPath), type: 'text/javascript; charset=utf-8' });
   assets.set('/assets/page.js', { body: readFileSync(new URL('./page-client.js', import.meta.url)), type: 'text/javascript; charset=utf-8' });
   assets.set('/assets/page.css', { body: Buffer.from(PAGE_CSS), type: 'text/css; charset=utf-8' });
