@@ -38,6 +38,8 @@ export interface KMeansResult {
   passes: number;
   /** Squared distances of every sample to every centre (nSamples x nCentres). */
   dist2: Dense;
+  /** Within-cluster sum of squares after each assignment step of the winning run (non-increasing). */
+  inertiaByPass: number[];
 }
 
 export interface FitOptions {
@@ -58,7 +60,14 @@ export interface FitOptions {
   seed: number;
   /** Previous model for a warm start (centres and widths reused when dimensions match). */
   warmStart?: RbfModel;
+  /** Run k-means on a seeded subsample of this many rows, then assign every row (0 = off). */
   subsampleRows?: number;
+  /** k-means shift tolerance (see KMeansOptions.tol). Default 1e-4. */
+  kmeansTol?: number;
+  /** Lloyd passes allowed when warm-started from a previous model's centres. Default 10. */
+  warmMaxPasses?: number;
+  /** After choosing widths on the validation tail, solve the final weights on all rows. Default true. */
+  refitAllRows?: boolean;
 }
 
 /** A fitted network as plain data; JSON round-trips give bit-identical predictions. */
@@ -91,13 +100,21 @@ export interface FitReport {
   kmeansPasses: number;
   inertia: number;
   history: FitHistoryEntry[];
+  /** MSE of the returned model on the rows its final weights were solved on (all rows when refitAllRows). */
   trainMse: number;
+  /** Held-out MSE on the validation tail of the chosen widths (NaN without a tail). */
   validationMse: number;
+  nTrainRows: number;
+  nValidationRows: number;
+  /** Centres and widths came from opts.warmStart. */
+  warmStarted: boolean;
+  /** Absolute ridge penalty of the final solve (raised automatically if the system was singular). */
+  lambda: number;
 }
 
 export interface Prediction {
   /** nSamples x nOutputs. */
   y: Dense;
-  /** Per sample: the largest Gaussian activation max_k exp(-gamma_k |x - mu_k|^2), in (0, 1]; small = novel input. */
+  /** Per sample: the largest Gaussian activation max_k exp(-gamma_k |x - mu_k|^2), in [0, 1]; small = novel input (0 when it underflows). */
   novelty: Float64Array;
 }

@@ -1,0 +1,93 @@
+/**
+ * Squared Euclidean distances of every sample to every centre, the hot loop of k-means.
+ * Form: |x - c|^2 = |x|^2 + |c|^2 - 2 x.c, clipped at 0 (cancellation can give tiny negatives).
+ */
+
+/** Row norms |x_n|^2 of a row-major nRows x nCols matrix. */
+export function rowNorms2(data: Float64Array, nRows: number, nCols: number, out: Float64Array = new Float64Array(nRows)): Float64Array {
+  for (let n = 0; n < nRows; n++) {
+    let s = 0;
+    const o = n * nCols;
+    for (let j = 0; j < nCols; j++) s += data[o + j] * data[o + j];
+    out[n] = s;
+  }
+  return out;
+}
+
+/**
+ * out[n*K + k] = max(0, x2[n] + c2[k] - 2 x_n . c_k) for n in [0, nRows), k in [0, nCentres).
+ * Scalar kernel blocked 2 samples x 4 centres so each loaded x value feeds four multiply-adds.
+ */
+export function dist2Scalar(
+  x: Float64Array,
+  x2: Float64Array,
+  nRows: number,
+  nFeatures: number,
+  c: Float64Array,
+  c2: Float64Array,
+  nCentres: number,
+  out: Float64Array,
+): void {
+  const d = nFeatures;
+  const K = nCentres;
+  let n = 0;
+  for (; n + 1 < nRows; n += 2) {
+    const xa = n * d;
+    const xb = xa + d;
+    let k = 0;
+    for (; k + 3 < K; k += 4) {
+      const c0 = k * d, c1 = c0 + d, c3 = c1 + d, c4 = c3 + d;
+      let a0 = 0, a1 = 0, a2 = 0, a3 = 0, b0 = 0, b1 = 0, b2 = 0, b3 = 0;
+      for (let j = 0; j < d; j++) {
+        const u = x[xa + j], v = x[xb + j];
+        const p = c[c0 + j], q = c[c1 + j], r = c[c3 + j], s = c[c4 + j];
+        a0 += u * p; a1 += u * q; a2 += u * r; a3 += u * s;
+        b0 += v * p; b1 += v * q; b2 += v * r; b3 += v * s;
+      }
+      const oa = n * K + k, ob = oa + K;
+      const ua = x2[n], ub = x2[n + 1];
+      out[oa] = clip0(ua + c2[k] - 2 * a0); out[oa + 1] = clip0(ua + c2[k + 1] - 2 * a1);
+      out[oa + 2] = clip0(ua + c2[k + 2] - 2 * a2); out[oa + 3] = clip0(ua + c2[k + 3] - 2 * a3);
+      out[ob] = clip0(ub + c2[k] - 2 * b0); out[ob + 1] = clip0(ub + c2[k + 1] - 2 * b1);
+      out[ob + 2] = clip0(ub + c2[k + 2] - 2 * b2); out[ob + 3] = clip0(ub + c2[k + 3] - 2 * b3);
+    }
+    for (; k < K; k++) {
+      const co = k * d;
+      let a = 0, b = 0;
+      for (let j = 0; j < d; j++) {
+        a += x[xa + j] * c[co + j];
+        b += x[xb + j] * c[co + j];
+      }
+      out[n * K + k] = clip0(x2[n] + c2[k] - 2 * a);
+      out[(n + 1) * K + k] = clip0(x2[n + 1] + c2[k] - 2 * b);
+    }
+  }
+  for (; n < nRows; n++) {
+    const xa = n * d;
+    for (let k = 0; k < K; k++) {
+      const co = k * d;
+      let a = 0;
+      for (let j = 0; j < d; j++) a += x[xa + j] * c[co + j];
+      out[n * K + k] = clip0(x2[n] + c2[k] - 2 * a);
+    }
+  }
+}
+
+function clip0(v: number): number {
+  return v > 0 ? v : 0;
+}
+
+/** Distances of all rows to all centres (the kernel used by k-means, fit and predict). */
+export function dist2All(
+  x: Float64Array,
+  nRows: number,
+  nFeatures: number,
+  c: Float64Array,
+  nCentres: number,
+  out = new Float64Array(nRows * nCentres),
+  x2 = rowNorms2(x, nRows, nFeatures),
+): Float64Array {
+  const c2 = rowNorms2(c, nCentres, nFeatures);
+  dist2Scalar(x, x2, nRows, nFeatures, c, c2, nCentres, out);
+  return out;
+}

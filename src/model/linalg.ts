@@ -1,0 +1,232 @@
+/**
+ * Dense linear algebra for the weight solve: symmetric rank-k products, Cholesky with diagonal
+ * equilibration, ridge least squares for many right-hand sides with iterative refinement, and a
+ * Householder QR least-squares solver used as the accuracy yardstick.
+ */
+
+/** A Cholesky factor of D A D + lambda D^2 (D = diag(scale)), lower triangle row-major. */
+export interface CholeskyFactor {
+  p: number;
+  lower: Float64Array;
+  scale: Float64Array;
+}
+
+/**
+ * Factor (A + lambda I) after scaling rows/columns by 1/sqrt(diag): the scaled matrix has a unit
+ * diagonal, which removes the part of the condition number that comes from column units.
+ * Returns null when a pivot is not positive (singular or indefinite to working precision).
+ */
+export function choleskyScaled(a: Float64Array, p: number, lambda: number): CholeskyFactor | null {
+  const scale = new Float64Array(p);
+  for (let i = 0; i < p; i++) {
+    const v = a[i * p + i] + lambda;
+    scale[i] = v > 0 ? 1 / Math.sqrt(v) : 1;
+  }
+  const l = new Float64Array(p * p);
+  for (let i = 0; i < p; i++) {
+    for (let j = 0; j <= i; j++) {
+      // l_ij = (s_i s_j (a_ij + lambda δij) - Σ_{m<j} l_im l_jm) / l_jj
+      let s = (a[i * p + j] + (i === j ? lambda : 0)) * scale[i] * scale[j];
+      const io = i * p;
+      const jo = j * p;
+      for (let m = 0; m < j; m++) s -= l[io + m] * l[jo + m];
+      if (i === j) {
+        if (!(s > 0)) return null;
+        l[io + i] = Math.sqrt(s);
+      } else {
+        l[io + j] = s / l[jo + j];
+      }
+    }
+  }
+  return { p, lower: l, scale };
+}
+
+/** Solves (A + lambda I) X = B for B (p x h, row-major) with a factor from choleskyScaled. */
+export function choleskySolve(f: CholeskyFactor, b: Float64Array, h: number, out: Float64Array = new Float64Array(b.length)): Float64Array {
+  const { p, lower: l, scale } = f;
+  // z = S b; forward L u = z; backward L^T v = u; x = S v.
+  for (let i = 0; i < p; i++) {
+    const s = scale[i];
+    for (let c = 0; c < h; c++) out[i * h + c] = b[i * h + c] * s;
+  }
+  for (let i = 0; i < p; i++) {
+    const io = i * h;
+    for (let m = 0; m < i; m++) {
+      const lim = l[i * p + m];
+      if (lim === 0) continue;
+      const mo = m * h;
+      for (let c = 0; c < h; c++) out[io + c] -= lim * out[mo + c];
+    }
+    const inv = 1 / l[i * p + i];
+    for (let c = 0; c < h; c++) out[io + c] *= inv;
+  }
+  for (let i = p - 1; i >= 0; i--) {
+    const io = i * h;
+    for (let m = i + 1; m < p; m++) {
+      const lmi = l[m * p + i];
+      if (lmi === 0) continue;
+      const mo = m * h;
+      for (let c = 0; c < h; c++) out[io + c] -= lmi * out[mo + c];
+    }
+    const inv = 1 / l[i * p + i];
+    for (let c = 0; c < h; c++) out[io + c] *= inv;
+  }
+  for (let i = 0; i < p; i++) {
+    const s = scale[i];
+    for (let c = 0; c < h; c++) out[i * h + c] *= s;
+  }
+  return out;
+}
+
+/** Gram matrix G = A^T A over rows [r0, r1) of a row-major n x p matrix (full symmetric result). */
+export function gram(a: Float64Array, p: number, r0: number, r1: number, out: Float64Array = new Float64Array(p * p)): Float64Array {
+  out.fill(0);
+  for (let n = r0; n < r1; n++) {
+    const o = n * p;
+    for (let i = 0; i < p; i++) {
+      const v = a[o + i];
+      if (v === 0) continue;
+      const gi = i * p;
+      for (let j = i; j < p; j++) out[gi + j] += v * a[o + j];
+    }
+  }
+  for (let i = 0; i < p; i++) for (let j = i + 1; j < p; j++) out[j * p + i] = out[i * p + j];
+  return out;
+}
+
+/** C = A^T B over rows [r0, r1): A is n x p, B is n x h (row-major); C is p x h. */
+export function crossProduct(a: Float64Array, p: number, b: Float64Array, h: number, r0: number, r1: number, out: Float64Array = new Float64Array(p * h)): Float64Array {
+  out.fill(0);
+  for (let n = r0; n < r1; n++) {
+    const ao = n * p;
+    const bo = n * h;
+    for (let i = 0; i < p; i++) {
+      const v = a[ao + i];
+      if (v === 0) continue;
+      const co = i * h;
+      for (let c = 0; c < h; c++) out[co + c] += v * b[bo + c];
+    }
+  }
+  return out;
+}
+
+/** R = Y - A W over rows [r0, r1) (residual rows indexed from 0). */
+export function residual(a: Float64Array, p: number, w: Float64Array, y: Float64Array, h: number, r0: number, r1: number, out: Float64Array = new Float64Array((r1 - r0) * h)): Float64Array {
+  for (let n = r0; n < r1; n++) {
+    const ao = n * p;
+    const ro = (n - r0) * h;
+    for (let c = 0; c < h; c++) out[ro + c] = y[n * h + c];
+    for (let i = 0; i < p; i++) {
+      const v = a[ao + i];
+      if (v === 0) continue;
+      const wo = i * h;
+      for (let c = 0; c < h; c++) out[ro + c] -= v * w[wo + c];
+    }
+  }
+  return out;
+}
+
+export interface RidgeSolveResult {
+  /** p x h weights. */
+  w: Float64Array;
+  /** Ridge penalty actually used (raised when the system was singular). */
+  lambda: number;
+  factor: CholeskyFactor;
+}
+
+/**
+ * Ridge least squares min |A W - Y|^2 + lambda |W|^2 for all h columns of Y in one solve:
+ * normal equations, equilibrated Cholesky, then `refineSteps` rounds of iterative refinement
+ * W += (A^T A + lambda I)^-1 (A^T (Y - A W) - lambda W) with residuals from the original data,
+ * which recovers the digits the normal equations lose on ill-conditioned designs.
+ * When the system is singular to working precision lambda is raised (1e-12 relative, x100 steps).
+ */
+export function ridgeSolve(
+  a: Float64Array,
+  p: number,
+  y: Float64Array,
+  h: number,
+  r0: number,
+  r1: number,
+  lambda: number,
+  refineSteps: number,
+  g = gram(a, p, r0, r1),
+): RidgeSolveResult | null {
+  const b = crossProduct(a, p, y, h, r0, r1);
+  let lam = lambda;
+  let f = choleskyScaled(g, p, lam);
+  if (f === null) {
+    let tr = 0;
+    for (let i = 0; i < p; i++) tr += g[i * p + i];
+    const base = tr > 0 ? tr / p : 1;
+    for (let rel = 1e-12; f === null && rel <= 1; rel *= 100) {
+      lam = Math.max(lambda, rel * base);
+      f = choleskyScaled(g, p, lam);
+    }
+    if (f === null) return null;
+  }
+  const w = choleskySolve(f, b, h);
+  if (refineSteps > 0) {
+    const rhs = new Float64Array(p * h);
+    const dw = new Float64Array(p * h);
+    const res = new Float64Array((r1 - r0) * h);
+    for (let s = 0; s < refineSteps; s++) {
+      residual(a, p, w, y, h, r0, r1, res);
+      // rhs = A^T r - lambda W, with A rows [r0, r1) and r indexed from 0.
+      rhs.fill(0);
+      for (let n = r0; n < r1; n++) {
+        const ao = n * p;
+        const ro = (n - r0) * h;
+        for (let i = 0; i < p; i++) {
+          const v = a[ao + i];
+          if (v === 0) continue;
+          for (let c = 0; c < h; c++) rhs[i * h + c] += v * res[ro + c];
+        }
+      }
+      if (lam !== 0) for (let i = 0; i < p * h; i++) rhs[i] -= lam * w[i];
+      choleskySolve(f, rhs, h, dw);
+      for (let i = 0; i < p * h; i++) w[i] += dw[i];
+    }
+  }
+  return { w, lambda: lam, factor: f };
+}
+
+/**
+ * Householder QR least squares min |A x - y| for one right-hand side (n >= p, full column rank).
+ * Slower than the normal equations; used to check their accuracy (its error grows with cond(A),
+ * not cond(A)^2). Returns null on exact rank deficiency.
+ */
+export function qrLeastSquares(aIn: Float64Array, n: number, p: number, yIn: Float64Array): Float64Array | null {
+  const a = Float64Array.from(aIn);
+  const y = Float64Array.from(yIn);
+  const rdiag = new Float64Array(p);
+  for (let k = 0; k < p; k++) {
+    // Householder vector for column k; R's diagonal is -norm (the JAMA convention).
+    let norm = 0;
+    for (let i = k; i < n; i++) norm = Math.hypot(norm, a[i * p + k]);
+    if (norm === 0) return null;
+    if (a[k * p + k] < 0) norm = -norm;
+    for (let i = k; i < n; i++) a[i * p + k] /= norm;
+    a[k * p + k] += 1;
+    const vkk = a[k * p + k];
+    for (let j = k + 1; j < p; j++) {
+      let s = 0;
+      for (let i = k; i < n; i++) s += a[i * p + k] * a[i * p + j];
+      s = -s / vkk;
+      for (let i = k; i < n; i++) a[i * p + j] += s * a[i * p + k];
+    }
+    let s = 0;
+    for (let i = k; i < n; i++) s += a[i * p + k] * y[i];
+    s = -s / vkk;
+    for (let i = k; i < n; i++) y[i] += s * a[i * p + k];
+    rdiag[k] = -norm;
+  }
+  // Back substitution R x = Q^T y (R strictly upper part sits above the diagonal of a).
+  const x = new Float64Array(p);
+  for (let k = p - 1; k >= 0; k--) {
+    let s = y[k];
+    for (let j = k + 1; j < p; j++) s -= a[k * p + j] * x[j];
+    x[k] = s / rdiag[k];
+  }
+  return x;
+}
