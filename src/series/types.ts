@@ -23,12 +23,22 @@ export interface RegularizeOptions {
   duplicates: DuplicatePolicy;
   /** Gaps of at most this many missing steps are filled by linear interpolation. */
   maxFillSteps: number;
+  /** Series name for error messages (optional). */
+  series?: string;
 }
 
 export interface RegularizeStats {
+  /** Readings passed in. */
   readingsIn: number;
+  /** Readings dropped because t or v was not a finite number. */
   dropped: number;
+  /** Valid readings outside [startMs, endMs), ignored. */
+  outOfRange: number;
+  /** Readings merged into another one with the same timestamp. */
+  duplicates: number;
+  /** Steps filled by linear interpolation. */
   filled: number;
+  /** Steps still missing (NaN) after filling. */
   missingSteps: number;
 }
 
@@ -37,6 +47,8 @@ export interface RegularSeries {
   startMs: number;
   stepMs: number;
   values: Float64Array;
+  /** 1 where values[i] was interpolated rather than observed (absent = all observed). */
+  filled?: Uint8Array;
   stats: RegularizeStats;
 }
 
@@ -82,9 +94,28 @@ export interface FeatureOptions {
 
 /** Per-feature standardisation fitted on the training window only. */
 export interface Scaler {
+  /** Training mean of each raw feature. */
   mean: number[];
-  /** Scale already multiplied by 1/groupWeight; constant features get scale 1. */
+  /** Training standard deviation divided by the feature's group weight: x = (raw - mean) / scale. Constant features get scale 1. */
   scale: number[];
+  /** Features that were constant on the training window (or whose group weight is 0): they always map to 0, so they add nothing to distances. */
+  constant: boolean[];
+  /** Feature names in order, checked when the scaler is applied to a new vector. */
+  featureNames: string[];
+}
+
+export type FeatureGroup = 'lags' | 'calendar' | 'exogenous';
+
+/** Counts of one buildSamples call. */
+export interface SampleStats {
+  /** Origins whose inputs and targets fall inside the window. */
+  candidates: number;
+  /** Candidates skipped because an input, target or base value was missing. */
+  skippedMissing: number;
+  /** Candidates skipped because the origin step itself was interpolated (its fill used a later value). */
+  skippedFilledOrigin: number;
+  /** Samples in the set. */
+  usableSamples: number;
 }
 
 export interface SampleSet {
@@ -97,5 +128,8 @@ export interface SampleSet {
   /** Index o into the regular series of each sample's origin: values[0..o] are known, targets are values[o+1 .. o+horizon]. */
   originIndex: Int32Array;
   featureNames: string[];
+  /** Group of each feature (same order as featureNames). */
+  featureGroups: FeatureGroup[];
   scaler: Scaler;
+  stats: SampleStats;
 }

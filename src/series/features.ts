@@ -1,0 +1,507 @@
+/**
+ * Regular series -> feature matrix and multi-step targets (training), and the feature vector of
+ * one forecast origin. Convention: origin o means values[0..o] are known; the targets are
+ * values[o+1 .. o+H]; the first target bucket starts at startMs + (o+1) * stepMs.
+ *
+ * Raw features of origin o, in this order (names in parentheses):
+ *  - lags (lag_k): values[o - k + 1] for each configured k (lag 1 = values[o]);
+ *  - seasonal inputs (season_h{h}), if enabled: for each target step h the latest value one
+ *    or more whole seasons before the target that is known at the origin:
+ *    values[o + h - S * ceil(h / S)] (one season earlier when h <= S);
+ *  - exogenous, per spec: lagged (NAME_lag_k) at exo index o' - k + 1, and at each target time
+ *    (NAME_at_h{h}) at exo index o' + h, where o' is the exo index of the origin step;
+ *  - calendar (hour_sin ... holiday_d{d}) of the first target bucket's start instant.
+ * Groups: lags + seasonal inputs -> 'lags', calendar -> 'calendar', exogenous -> 'exogenous'.
+ */
+import type { Dense } from '../model/types.ts';
+import { CalendarEncoder } from './calendar.ts';
+import { isoAt, SeriesError } from './errors.ts';
+import { DAY_MS } from './zone.ts';
+import type { FeatureGroup, FeatureOptions, RegularSeries, SampleSet, SampleStats, Scaler } from './types.ts';
+
+/** Relative tolerance under which a training standard deviation counts as zero. */
+const CONSTANT_REL_TOL = 1e-12;
+
+interface ExoPlan {
+  name: string;
+  series: RegularSeries;
+  /** exoIndex = targetIndex + shift */
+  shift: number;
+  lags: number[];
+  atTarget: boolean;
+}
+
+/** Everything needed to compute raw features of any origin, resolved once per build call. */
+export interface FeatureLayout {
+  series: string;
+  names: string[];
+  groups: FeatureGroup[];
+  /** For diagnostics: which series a feature reads and at which index relative to the origin (NaN = calendar). */
+  sourceName: string[];
+  sourceRel: number[];
+  nFeatures: number;
+  horizon: number;
+  lags: number[];
+  seasonSteps: number;
+  seasonalInputs: boolean;
+  targetMode: FeatureOptions['targetMode'];
+  exo: ExoPlan[];
+  calendar: CalendarEncoder;
+  /** Inputs and base of origin o read target indices down to o - lookback + 1. */
+  lookback: number;
+  /** Exogenous inputs read exo indices down to o' - exoLookback + 1 (0 = none lagged). */
+  exoLookback: number;
+  stepMs: number;
+  startMs: number;
+  groupWeights: FeatureOptions['groupWeights'];
+}
+
+/** Index one or more whole seasons before target step h that is known at the origin (relative to o). */
+function seasonalRel(h: number, seasonSteps: number): number {
+  return h - seasonSteps * Math.ceil(h / seasonSteps);
+}
+
+function badOption(series: string, field: string, message: string, hint: string): never {
+  throw new SeriesError({ code: 'BAD_OPTIONS', series, field, message, hint });
+}
+
+function checkSteps(series: string, field: string, list: number[]): void {
+  const seen = new Set<number>();
+  for (const k of list) {
+    if (!Number.isInteger(k) || k < 1) badOption(series, field, `lag ${k} is not a positive whole number of steps`, 'use steps like 1, 2, 24, 168');
+    if (seen.has(k)) badOption(series, field, `lag ${k} appears twice`, 'list each lag once');
+    seen.add(k);
+  }
+}
+
+/** Validate options, resolve exogenous series onto the target grid and name the features. */
+export function planFeatures(target: RegularSeries, exo: Record<string, RegularSeries>, opts: FeatureOptions): FeatureLayout {
+  const s = opts.series;
+  if (!Number.isInteger(opts.horizon) || opts.horizon < 1) badOption(s, 'horizon', `horizon=${opts.horizon} is not a positive whole number of steps`, 'e.g. 24 for next-day hourly forecasts');
+  checkSteps(s, 'lags', opts.lags);
+  const needSeason = opts.seasonalInputs || opts.targetMode === 'seasonal';
+  if (needSeason && (!Number.isInteger(opts.seasonSteps) || opts.seasonSteps < 1)) badOption(s, 'seasonSteps', `seasonSteps=${opts.seasonSteps} is not a positive whole number`, 'e.g. 24 for hourly data with a daily cycle');
+  if (!['absolute', 'level', 'seasonal'].includes(opts.targetMode)) badOption(s, 'targetMode', `unknown targetMode "${String(opts.targetMode)}"`, 'use absolute, level or seasonal');
+  for (const g of ['lags', 'calendar', 'exogenous'] as const) {
+    const w = opts.groupWeights[g];
+    if (!Number.isFinite(w) || w < 0) badOption(s, `groupWeights.${g}`, `weight ${w} is not a finite number >= 0`, 'use 1 for equal weight, 0 to ignore the group');
+  }
+
+  const names: string[] = [];
+  const groups: FeatureGroup[] = [];
+  const sourceName: string[] = [];
+  const sourceRel: number[] = [];
+  const add = (name: string, group: FeatureGroup, src: string, rel: number): void => {
+    names.push(name);
+    groups.push(group);
+    sourceName.push(src);
+    sourceRel.push(rel);
+  };
+
+  let lookback = 1; // the origin value itself (level base, seasonal inputs at h = S)
+  for (const k of opts.lags) {
+    add(`lag_${k}`, 'lags', s, 1 - k);
+    lookback = Math.max(lookback, k);
+  }
+  if (needSeason) lookback = Math.max(lookback, opts.seasonSteps);
+  if (opts.seasonalInputs) {
+    for (let h = 1; h <= opts.horizon; h++) add(`season_h${h}`, 'lags', s, seasonalRel(h, opts.seasonSteps));
+  }
+
+  const plans: ExoPlan[] = [];
+  let exoLookback = 0;
+  for (const spec of opts.exogenous) {
+    const e = exo[spec.name];
+    if (e === undefined) {
+      throw new SeriesError({
+        code: 'MISSING_EXOGENOUS',
+        series: s,
+        field: `exogenous.${spec.name}`,
+        message: `exogenous series "${spec.name}" was not supplied`,
+        hint: `read ${spec.name} from the store and pass it, or remove it from the exogenous inputs`,
+      });
+    }
+    const shiftMs = target.startMs - e.startMs;
+    if (e.stepMs !== target.stepMs || shiftMs % target.stepMs !== 0) {
+      throw new SeriesError({
+        code: 'GRID_MISMATCH',
+        series: s,
+        field: `exogenous.${spec.name}`,
+        message: `exogenous "${spec.name}" (step ${e.stepMs} ms, start ${isoAt(e.startMs)}) is not on the grid of the target (step ${target.stepMs} ms, start ${isoAt(target.startMs)})`,
+        hint: 'regularize the exogenous series with the same stepMs and a start aligned to the target grid',
+      });
+    }
+    checkSteps(s, `exogenous.${spec.name}.lags`, spec.lags);
+    if (spec.lags.length === 0 && !spec.atTarget) badOption(s, `exogenous.${spec.name}`, 'no lags and atTarget off: the input would add no features', 'add lags or set atTarget');
+    for (const k of spec.lags) {
+      add(`${spec.name}_lag_${k}`, 'exogenous', spec.name, 1 - k);
+      exoLookback = Math.max(exoLookback, k);
+    }
+    if (spec.atTarget) for (let h = 1; h <= opts.horizon; h++) add(`${spec.name}_at_h${h}`, 'exogenous', spec.name, h);
+    plans.push({ name: spec.name, series: e, shift: shiftMs / target.stepMs, lags: spec.lags, atTarget: spec.atTarget });
+  }
+
+  // Holiday flags for every local day the targets can touch: the day of the first target and
+  // the following days up to the last target.
+  const spanMs = (opts.horizon - 1) * target.stepMs;
+  const nHolidayDays = Math.floor(spanMs / DAY_MS) + (target.stepMs < DAY_MS ? 2 : 1);
+  const calendar = new CalendarEncoder(opts.timeZone, opts.calendar, nHolidayDays, s);
+  for (const n of calendar.names) add(n, 'calendar', '', NaN);
+
+  return {
+    series: s,
+    names,
+    groups,
+    sourceName,
+    sourceRel,
+    nFeatures: names.length,
+    horizon: opts.horizon,
+    lags: opts.lags,
+    seasonSteps: opts.seasonSteps,
+    seasonalInputs: opts.seasonalInputs,
+    targetMode: opts.targetMode,
+    exo: plans,
+    calendar,
+    lookback: Math.max(lookback, exoLookback),
+    exoLookback,
+    stepMs: target.stepMs,
+    startMs: target.startMs,
+    groupWeights: opts.groupWeights,
+  };
+}
+
+function at(values: Float64Array, i: number): number {
+  return i >= 0 && i < values.length ? values[i] : NaN;
+}
+
+/**
+ * Raw (unscaled) features of origin o into out[offset .. offset + nFeatures). Missing inputs
+ * are written as NaN; returns how many were missing.
+ */
+export function rawFeatures(layout: FeatureLayout, target: RegularSeries, o: number, out: Float64Array, offset = 0): number {
+  const v = target.values;
+  let j = offset;
+  let missing = 0;
+  for (const k of layout.lags) {
+    const x = at(v, o - k + 1);
+    if (Number.isNaN(x)) missing++;
+    out[j++] = x;
+  }
+  if (layout.seasonalInputs) {
+    for (let h = 1; h <= layout.horizon; h++) {
+      const x = at(v, o + seasonalRel(h, layout.seasonSteps));
+      if (Number.isNaN(x)) missing++;
+      out[j++] = x;
+    }
+  }
+  for (const e of layout.exo) {
+    const ev = e.series.values;
+    const oe = o + e.shift;
+    for (const k of e.lags) {
+      const x = at(ev, oe - k + 1);
+      if (Number.isNaN(x)) missing++;
+      out[j++] = x;
+    }
+    if (e.atTarget) {
+      for (let h = 1; h <= layout.horizon; h++) {
+        const x = at(ev, oe + h);
+        if (Number.isNaN(x)) missing++;
+        out[j++] = x;
+      }
+    }
+  }
+  layout.calendar.encode(layout.startMs + (o + 1) * layout.stepMs, out, j);
+  return missing;
+}
+
+/**
+ * Base of origin o for each target step (prediction in target space + base = value):
+ * absolute -> 0, level -> values[o], seasonal -> values[o + h - S * ceil(h / S)].
+ * Returns false if a base value is missing.
+ */
+export function targetBase(layout: FeatureLayout, target: RegularSeries, o: number, out: Float64Array, offset = 0): boolean {
+  const v = target.values;
+  const H = layout.horizon;
+  if (layout.targetMode === 'absolute') {
+    for (let h = 0; h < H; h++) out[offset + h] = 0;
+    return true;
+  }
+  if (layout.targetMode === 'level') {
+    const b = at(v, o);
+    for (let h = 0; h < H; h++) out[offset + h] = b;
+    return !Number.isNaN(b);
+  }
+  let ok = true;
+  for (let h = 1; h <= H; h++) {
+    const b = at(v, o + seasonalRel(h, layout.seasonSteps));
+    if (Number.isNaN(b)) ok = false;
+    out[offset + h - 1] = b;
+  }
+  return ok;
+}
+
+/** True when filled[i..end] are all 1: an interpolated value at i then used a value after `end`. */
+function fillReachesPast(filled: Uint8Array | undefined, i: number, end: number): boolean {
+  if (filled === undefined || i > end || i < 0) return false;
+  for (let p = i; p <= end; p++) if (p >= filled.length || filled[p] !== 1) return false;
+  return true;
+}
+
+/** Fit the per-feature standardisation on rows of raw (nRows x nFeatures). */
+export function fitScaler(raw: Float64Array, nRows: number, layout: FeatureLayout): Scaler {
+  const nF = layout.nFeatures;
+  const mean = new Array<number>(nF).fill(0);
+  const scale = new Array<number>(nF).fill(1);
+  const constant = new Array<boolean>(nF).fill(false);
+  for (let f = 0; f < nF; f++) {
+    // two-pass mean and population variance
+    let sum = 0;
+    for (let r = 0; r < nRows; r++) sum += raw[r * nF + f];
+    const mu = nRows > 0 ? sum / nRows : 0;
+    let ss = 0;
+    for (let r = 0; r < nRows; r++) {
+      const d = raw[r * nF + f] - mu;
+      ss += d * d;
+    }
+    const sd = nRows > 0 ? Math.sqrt(ss / nRows) : 0;
+    const w = layout.groupWeights[layout.groups[f]];
+    mean[f] = mu;
+    if (!(sd > CONSTANT_REL_TOL * Math.max(1, Math.abs(mu))) || w === 0) {
+      constant[f] = true;
+      scale[f] = 1;
+    } else {
+      scale[f] = sd / w;
+    }
+  }
+  return { mean, scale, constant, featureNames: layout.names.slice() };
+}
+
+/** x = (raw - mean) / scale; constant features map to 0. In place on raw[offset .. offset + nF). */
+export function applyScaler(scaler: Scaler, raw: Float64Array, offset = 0): void {
+  const nF = scaler.mean.length;
+  for (let f = 0; f < nF; f++) {
+    raw[offset + f] = scaler.constant[f] ? 0 : (raw[offset + f] - scaler.mean[f]) / scaler.scale[f];
+  }
+}
+
+function tooLittle(series: string, message: string, hint: string, details: Record<string, number>, atMs?: number): never {
+  throw new SeriesError({
+    code: 'TOO_LITTLE_HISTORY',
+    series,
+    message,
+    hint,
+    details,
+    ...(atMs !== undefined ? { at: isoAt(atMs) } : {}),
+  });
+}
+
+export interface SampleSelection {
+  /** Last index whose value may be used (inputs and targets at indices <= lastKnownIndex). */
+  lastKnownIndex: number;
+  /** Inputs and targets lie at indices > lastKnownIndex - windowSteps. */
+  windowSteps: number;
+  /** Fewer usable samples than this is a TOO_LITTLE_HISTORY error (default 1). */
+  minSamples?: number;
+}
+
+/**
+ * Training samples of the window (lastKnownIndex - windowSteps, lastKnownIndex]: every input,
+ * base and target of every sample lies inside it. Origins with a missing input, base or target
+ * are skipped, as are origins whose own step was interpolated from a later value. The scaler is
+ * fitted on the kept samples only.
+ */
+export function buildSamples(
+  target: RegularSeries,
+  exo: Record<string, RegularSeries>,
+  opts: FeatureOptions,
+  sel: SampleSelection,
+): SampleSet {
+  const layout = planFeatures(target, exo, opts);
+  const s = opts.series;
+  const H = layout.horizon;
+  const nF = layout.nFeatures;
+  const L = sel.lastKnownIndex;
+  const W = sel.windowSteps;
+  if (!Number.isInteger(L) || !Number.isInteger(W) || W < 1) badOption(s, 'windowSteps', `lastKnownIndex=${L}, windowSteps=${W} must be whole numbers, windowSteps >= 1`, 'pass grid indices');
+  const minSamples = sel.minSamples ?? 1;
+  const lo = Math.max(0, L - W + 1);
+  const hi = Math.min(L, target.values.length - 1);
+  const oMin = lo + layout.lookback - 1;
+  const oMax = hi - H;
+  const needed = layout.lookback + H + minSamples - 1;
+  const available = Math.max(0, hi - lo + 1);
+  if (oMax < oMin + minSamples - 1) {
+    const reason = W < needed
+      ? `windowSteps=${W} is shorter than the ${needed} steps needed`
+      : `only ${available} steps of history are available`;
+    tooLittle(
+      s,
+      `needs ${needed} steps (longest lookback ${layout.lookback} + horizon ${H}${minSamples > 1 ? ` + ${minSamples - 1} more samples` : ''}) inside the training window; ${reason}`,
+      W < needed ? `raise windowSteps to at least ${needed} or shorten the lags/horizon` : 'wait for more data or read further back from the store',
+      { needed, available, windowSteps: W, lookback: layout.lookback, horizon: H },
+    );
+  }
+
+  const nCand = oMax - oMin + 1;
+  const raw = new Float64Array(nCand * nF);
+  const y = new Float64Array(nCand * H);
+  const base = new Float64Array(nCand * H);
+  const origins = new Int32Array(nCand);
+  const v = target.values;
+  let n = 0;
+  let skippedMissing = 0;
+  let skippedFilledOrigin = 0;
+  let firstMissingOrigin = -1;
+  for (let o = oMin; o <= oMax; o++) {
+    if (fillReachesPast(target.filled, o, o)) {
+      skippedFilledOrigin++;
+      continue;
+    }
+    let leaks = false;
+    for (const e of layout.exo) {
+      if (e.lags.length > 0 && !e.atTarget) {
+        const newest = o + e.shift - Math.min(...e.lags) + 1;
+        if (fillReachesPast(e.series.filled, newest, o + e.shift)) leaks = true;
+      }
+    }
+    if (leaks) {
+      skippedFilledOrigin++;
+      continue;
+    }
+    const missing = rawFeatures(layout, target, o, raw, n * nF);
+    let ok = missing === 0 && targetBase(layout, target, o, base, n * H);
+    if (ok) {
+      for (let h = 1; h <= H; h++) {
+        const t = v[o + h];
+        if (Number.isNaN(t)) {
+          ok = false;
+          break;
+        }
+        y[n * H + h - 1] = t - base[n * H + h - 1];
+      }
+    }
+    if (!ok) {
+      skippedMissing++;
+      if (firstMissingOrigin < 0) firstMissingOrigin = o;
+      continue;
+    }
+    origins[n] = o;
+    n++;
+  }
+  if (n < minSamples) {
+    tooLittle(
+      s,
+      `${n} usable samples of ${nCand} candidate origins, ${minSamples} needed: ${skippedMissing} skipped for missing values, ${skippedFilledOrigin} for an interpolated origin`,
+      'fill the gaps in the store, raise maxFillSteps, or lengthen the training window',
+      { needed: minSamples, available: n, candidates: nCand, skippedMissing, skippedFilledOrigin },
+      firstMissingOrigin >= 0 ? target.startMs + (firstMissingOrigin + 1) * target.stepMs : undefined,
+    );
+  }
+
+  const scaler = fitScaler(raw, n, layout);
+  for (let r = 0; r < n; r++) applyScaler(scaler, raw, r * nF);
+  const stats: SampleStats = { candidates: nCand, skippedMissing, skippedFilledOrigin, usableSamples: n };
+  const dense = (data: Float64Array, cols: number): Dense => ({ data: data.slice(0, n * cols), rows: n, cols });
+  return {
+    x: dense(raw, nF),
+    y: dense(y, H),
+    base: dense(base, H),
+    originIndex: origins.slice(0, n),
+    featureNames: layout.names.slice(),
+    featureGroups: layout.groups.slice(),
+    scaler,
+    stats,
+  };
+}
+
+export interface ForecastInputPolicy {
+  /**
+   * At most this many missing inputs are replaced by their training mean (scaled value 0)
+   * instead of failing; their names are returned in `imputed`. Default 0: any missing input
+   * is a MISSING_INPUT error. A missing base value is always an error.
+   */
+  imputeMissingMax?: number;
+}
+
+export interface ForecastInput {
+  /** Scaled, group-weighted features (same order as the training features). */
+  x: Float64Array;
+  /** Per target step: value = prediction in target space + base. */
+  base: Float64Array;
+  /** Start instant (epoch ms) of each target bucket. */
+  targetTimes: number[];
+  /** Names of features that were missing and replaced by their training mean. */
+  imputed: string[];
+}
+
+/**
+ * Feature vector for forecasting the H steps after originIndex with a scaler from buildSamples.
+ * Exogenous inputs used at target time must be present (observed or forecast) up to the last
+ * target step in the exogenous series passed in.
+ */
+export function buildForecastInput(
+  target: RegularSeries,
+  exo: Record<string, RegularSeries>,
+  opts: FeatureOptions,
+  scaler: Scaler,
+  originIndex: number,
+  policy: ForecastInputPolicy = {},
+): ForecastInput {
+  const layout = planFeatures(target, exo, opts);
+  const s = opts.series;
+  const nF = layout.nFeatures;
+  const H = layout.horizon;
+  if (scaler.mean.length !== nF || scaler.featureNames.some((n, i) => n !== layout.names[i])) {
+    throw new SeriesError({
+      code: 'SCALER_MISMATCH',
+      series: s,
+      message: `the scaler has ${scaler.mean.length} features, the options give ${nF}`,
+      hint: 'refit after changing lags, horizon, calendar or exogenous options',
+      field: 'scaler',
+    });
+  }
+  if (!Number.isInteger(originIndex)) badOption(s, 'originIndex', `originIndex=${originIndex} is not a whole number`, 'pass a grid index');
+  const x = new Float64Array(nF);
+  const missing = rawFeatures(layout, target, originIndex, x);
+  const imputed: string[] = [];
+  if (missing > 0) {
+    const allowed = policy.imputeMissingMax ?? 0;
+    const first = x.findIndex((val) => Number.isNaN(val));
+    if (missing > allowed) {
+      const src = layout.sourceName[first];
+      const srcSeries = src === s ? target : layout.exo.find((e) => e.name === src)!.series;
+      const shift = src === s ? 0 : layout.exo.find((e) => e.name === src)!.shift;
+      const idx = originIndex + shift + layout.sourceRel[first];
+      throw new SeriesError({
+        code: 'MISSING_INPUT',
+        series: s,
+        field: layout.names[first],
+        at: isoAt(srcSeries.startMs + idx * srcSeries.stepMs),
+        message: `${missing} of ${nF} inputs are missing at origin ${isoAt(target.startMs + (originIndex + 1) * target.stepMs)} (first: ${layout.names[first]} from ${src})`,
+        hint: src === s ? 'the series has a gap longer than maxFillSteps within the lags; wait for data or raise maxFillSteps' : `supply ${src} (observed or forecast) up to the last target time`,
+        details: { missing, allowed },
+      });
+    }
+    for (let f = 0; f < nF; f++) {
+      if (Number.isNaN(x[f])) {
+        x[f] = scaler.mean[f];
+        imputed.push(layout.names[f]);
+      }
+    }
+  }
+  applyScaler(scaler, x);
+  const base = new Float64Array(H);
+  if (!targetBase(layout, target, originIndex, base)) {
+    throw new SeriesError({
+      code: 'MISSING_INPUT',
+      series: s,
+      field: 'base',
+      at: isoAt(target.startMs + originIndex * target.stepMs),
+      message: `the ${layout.targetMode} target base is missing at origin ${isoAt(target.startMs + (originIndex + 1) * target.stepMs)}`,
+      hint: layout.targetMode === 'level' ? 'the origin step has no value: forecast from the last step with a value' : 'a value one season before a target step is missing',
+    });
+  }
+  const targetTimes: number[] = [];
+  for (let h = 1; h <= H; h++) targetTimes.push(target.startMs + (originIndex + h) * target.stepMs);
+  return { x, base, targetTimes, imputed };
+}
