@@ -172,6 +172,13 @@ export class HttpServer {
       if (!data) return this.#json(res, 404, { error: 'UNKNOWN_SERIES', message: 'no such series in the running config' });
       return this.#json(res, 200, data);
     }
+    if (path === '/favicon.ico') {
+      // No icon; answer so browsers do not log a 404 on every visit.
+      res.statusCode = 204;
+      for (const [k, v] of Object.entries(SECURITY_HEADERS)) res.setHeader(k, v);
+      res.end();
+      return;
+    }
     const asset = this.#assets.get(path);
     if (asset) return this.#send(res, 200, asset.type, asset.body);
     return this.#send(res, 404, 'text/plain; charset=utf-8', 'not found\n');
