@@ -1,0 +1,159 @@
+/**
+ * One chain of consecutive backtest origins, run in a worker thread or inline: at each origin the
+ * model is fitted on the window before it (warm-started from the previous origin of the chain),
+ * forecasts H steps, and the baselines forecast from the same origin. Pure computation; the
+ * scoring and the bands are done afterwards over all chains (see backtest.ts).
+ */
+import type { RegularSeries } from '../series/types.ts';
+import type { ForecastSettings } from '../forecast/types.ts';
+import type { FittedForecaster, HoldoutResiduals } from '../forecast/engine.ts';
+import { fitAt, forecastAt } from '../forecast/engine.ts';
+import { errorInfo } from '../forecast/errors.ts';
+import { seasonalScale } from './metrics.ts';
+import { fitRidgeAr, forecastRidgeAr, seasonalNaiveForecast, type SeasonalBaseline } from './baselines.ts';
+
+/** Name of the model row in every table. */
+export const MODEL_METHOD = 'rbf';
+/** Name of the ridge autoregression baseline. */
+export const RIDGE_METHOD = 'ridge-ar';
+
+export interface ChainTask {
+  target: RegularSeries;
+  exo: Record<string, RegularSeries>;
+  settings: ForecastSettings;
+  /** Origin indices into target.values, ascending. */
+  origins: number[];
+  seasonal: SeasonalBaseline[];
+  /** Relative ridge penalty of the ridge-AR baseline. */
+  ridgeArPenalty: number;
+  /** Compute hold-out residuals before the first origin (seed of the bands). */
+  calibrate: boolean;
+  /** Most hold-out residuals kept per lead. */
+  calibrationCap: number;
+}
+
+export type OriginOutcome =
+  | {
+      ok: true;
+      originIndex: number;
+      originMs: number;
+      /** MASE scale on this origin's training window, season m = settings.features.seasonSteps. */
+      scale: number;
+      actual: number[];
+      /** forecasts[method] = H values (NaN where a method had no forecast). */
+      forecasts: Record<string, number[]>;
+      novelty: number;
+      fitMs: number;
+      warmStarted: boolean;
+      chosen: FittedForecaster['chosen'];
+      autoSearched: boolean;
+      /** Errors of baselines that could not forecast at this origin (the model still counts). */
+      baselineErrors: Record<string, string>;
+    }
+  | { ok: false; originIndex: number; originMs: number; code: string; message: string; hint: string };
+
+export interface ChainResult {
+  outcomes: OriginOutcome[];
+  /** Hold-out residuals per method and lead (only when task.calibrate). */
+  calibration?: Record<string, number[][]>;
+}
+
+function windowStart(settings: ForecastSettings, originIndex: number): number {
+  return originIndex - settings.windowSteps + 1;
+}
+
+/**
+ * Hold-out residuals of the baselines at every origin v = vFirst .. originIndex - H (the model's
+ * hold-out origins): the ridge baseline is fitted on the window up to vFirst only.
+ */
+function baselineCalibration(task: ChainTask, originIndex: number, vFirstIn: number | undefined): Record<string, number[][]> {
+  const { settings, target } = task;
+  const H = settings.features.horizon;
+  const values = target.values;
+  const ws = Math.max(0, windowStart(settings, originIndex));
+  const vFirst = vFirstIn ?? originIndex - H - Math.floor((originIndex - ws + 1) * settings.fit.validationFraction) + 1;
+  const out: Record<string, number[][]> = {};
+  for (const b of task.seasonal) out[b.name] = Array.from({ length: H }, () => []);
+  out[RIDGE_METHOD] = Array.from({ length: H }, () => []);
+  if (vFirst + H > originIndex || vFirst <= ws) return out;
+  let ridge: ReturnType<typeof fitRidgeAr> | null = null;
+  try {
+    ridge = fitRidgeAr(values, ws, vFirst, settings.features.lags, H, { ridge: task.ridgeArPenalty });
+  } catch {
+    ridge = null;
+  }
+  for (let v = vFirst; v + H <= originIndex; v++) {
+    const fc: Record<string, Float64Array> = {};
+    for (const b of task.seasonal) fc[b.name] = seasonalNaiveForecast(values, v, H, b.m);
+    if (ridge) fc[RIDGE_METHOD] = forecastRidgeAr(ridge, values, v);
+    for (const [name, f] of Object.entries(fc)) {
+      for (let h = 0; h < H; h++) {
+        const r = values[v + 1 + h] - f[h];
+        if (Number.isFinite(r)) out[name][h].push(r);
+      }
+    }
+  }
+  for (const name of Object.keys(out)) out[name] = out[name].map((l) => l.slice(-task.calibrationCap));
+  return out;
+}
+
+/** Runs the chain; `onOrigin` is called after each origin (progress). */
+export function runChain(task: ChainTask, onOrigin?: (o: OriginOutcome) => void): ChainResult {
+  const { settings, target, exo } = task;
+  const H = settings.features.horizon;
+  const m = settings.features.seasonSteps;
+  const values = target.values;
+  const outcomes: OriginOutcome[] = [];
+  let warm: FittedForecaster | undefined;
+  let calibration: Record<string, number[][]> | undefined;
+  for (let i = 0; i < task.origins.length; i++) {
+    const o = task.origins[i];
+    const originMs = target.startMs + o * target.stepMs;
+    let outcome: OriginOutcome;
+    try {
+      const wantCalibration = task.calibrate && calibration === undefined;
+      let holdout: HoldoutResiduals | undefined;
+      const fitted = fitAt(target, exo, settings, o, warm, wantCalibration ? { holdout: true, onHoldout: (h) => (holdout = h) } : { holdout: false });
+      const fc = forecastAt(fitted, target, exo, settings, o);
+      warm = fitted;
+      const ws = Math.max(0, windowStart(settings, o));
+      const actual: number[] = [];
+      for (let h = 1; h <= H; h++) actual.push(o + h < values.length ? values[o + h] : Number.NaN);
+      const forecasts: Record<string, number[]> = { [MODEL_METHOD]: Array.from(fc.values) };
+      const baselineErrors: Record<string, string> = {};
+      for (const b of task.seasonal) forecasts[b.name] = Array.from(seasonalNaiveForecast(values, o, H, b.m));
+      try {
+        const ridge = fitRidgeAr(values, ws, o, settings.features.lags, H, { ridge: task.ridgeArPenalty });
+        forecasts[RIDGE_METHOD] = Array.from(forecastRidgeAr(ridge, values, o));
+      } catch (err) {
+        forecasts[RIDGE_METHOD] = new Array<number>(H).fill(Number.NaN);
+        baselineErrors[RIDGE_METHOD] = errorInfo(err).message;
+      }
+      if (wantCalibration) {
+        calibration = baselineCalibration(task, o, holdout?.firstOrigin);
+        calibration[MODEL_METHOD] = holdout ? holdout.residualsByLead.map((l) => l.slice(-task.calibrationCap)) : Array.from({ length: H }, () => []);
+      }
+      outcome = {
+        ok: true,
+        originIndex: o,
+        originMs,
+        scale: seasonalScale(values, ws, o, m).scale,
+        actual,
+        forecasts,
+        novelty: fc.novelty,
+        fitMs: fitted.fitMs,
+        warmStarted: fitted.warmStarted,
+        chosen: fitted.chosen,
+        autoSearched: fitted.auto?.searched ?? false,
+        baselineErrors,
+      };
+    } catch (err) {
+      // One bad origin (a gap in its inputs, too little history) does not stop the backtest.
+      outcome = { ok: false, originIndex: o, originMs, ...errorInfo(err) };
+      warm = undefined;
+    }
+    outcomes.push(outcome);
+    onOrigin?.(outcome);
+  }
+  return calibration ? { outcomes, calibration } : { outcomes };
+}
