@@ -1,0 +1,127 @@
+/** In-memory stand-ins for the store, the state store and the drift layer, for cycle tests. */
+import type { ForecastBatch, HealthPoint, ScorePoint, SeriesStore, SourceSelector } from '../../../src/store/types.ts';
+import type { Reading } from '../../../src/series/types.ts';
+import type { CycleState, IssuedForecast } from '../../../src/daemon/ports.ts';
+import type { FittedForecaster } from '../../../src/forecast/engine.ts';
+import type { ResidualPool } from '../../../src/evaluate/bands.ts';
+import { parseConfigObject } from '../../../src/config/load.ts';
+import type { ResolvedSeries } from '../../../src/config/resolve.ts';
+import { mulberry32 } from '../../../src/model/index.ts';
+
+export const HOUR = 3600_000;
+
+export class MemoryStore implements SeriesStore {
+  readonly kind = 'memory';
+  readings = new Map<string, Reading[]>();
+  forecasts: ForecastBatch[] = [];
+  scores: ScorePoint[] = [];
+  health: HealthPoint[] = [];
+  /** Per-call hooks to inject failures: return an error to throw it. */
+  failRead?: (sel: SourceSelector) => unknown;
+  failWrite?: (kind: 'forecast' | 'scores' | 'health') => unknown;
+  reads = 0;
+  closed = false;
+  flushed = 0;
+
+  async readReadings(sel: SourceSelector, fromMs: number, toMs: number): Promise<Reading[]> {
+    this.reads++;
+    const e = this.failRead?.(sel);
+    if (e) throw e;
+    return (this.readings.get(sel.name) ?? []).filter((r) => r.t >= fromMs && r.t < toMs);
+  }
+  async writeForecast(batch: ForecastBatch): Promise<void> {
+    const e = this.failWrite?.('forecast');
+    if (e) throw e;
+    this.forecasts.push(structuredClone(batch));
+  }
+  async writeScores(points: ScorePoint[]): Promise<void> {
+    const e = this.failWrite?.('scores');
+    if (e) throw e;
+    this.scores.push(...points);
+  }
+  async writeHealth(points: HealthPoint[]): Promise<void> {
+    const e = this.failWrite?.('health');
+    if (e) throw e;
+    this.health.push(...points);
+  }
+  async ping(): Promise<boolean> {
+    return !this.closed;
+  }
+  async flush(): Promise<void> {
+    this.flushed++;
+  }
+  async close(): Promise<void> {
+    this.closed = true;
+  }
+}
+
+export class MemoryState implements CycleState {
+  models = new Map<string, FittedForecaster>();
+  residuals = new Map<string, ResidualPool>();
+  issued = new Map<string, Map<number, { f: IssuedForecast; settled: boolean }>>();
+  drift = new Map<string, unknown>();
+
+  async getModel(series: string) {
+    return structuredClone(this.models.get(series) ?? null);
+  }
+  async putModel(series: string, fitted: FittedForecaster) {
+    this.models.set(series, structuredClone(fitted));
+  }
+  async getResiduals(series: string) {
+    return structuredClone(this.residuals.get(series) ?? null);
+  }
+  async putResiduals(series: string, pool: ResidualPool) {
+    this.residuals.set(series, structuredClone(pool));
+  }
+  async recordIssued(f: IssuedForecast) {
+    const m = this.issued.get(f.series) ?? new Map();
+    m.set(f.issuedAt, { f: structuredClone(f), settled: false });
+    this.issued.set(f.series, m);
+  }
+  async pendingIssued(series: string) {
+    return [...(this.issued.get(series)?.values() ?? [])].filter((e) => !e.settled).map((e) => structuredClone(e.f)).sort((a, b) => a.issuedAt - b.issuedAt);
+  }
+  async settleIssued(series: string, issuedAts: number[]) {
+    for (const t of issuedAts) {
+      const e = this.issued.get(series)?.get(t);
+      if (e) e.settled = true;
+    }
+  }
+  async latestIssued(series: string) {
+    const all = [...(this.issued.get(series)?.values() ?? [])].map((e) => e.f).sort((a, b) => b.issuedAt - a.issuedAt);
+    return all[0] ? structuredClone(all[0]) : null;
+  }
+  async getDriftState(series: string) {
+    return this.drift.get(series) ?? null;
+  }
+  async putDriftState(series: string, state: unknown) {
+    this.drift.set(series, state);
+  }
+}
+
+/**
+ * Invented hourly heat-load-like series for tests: a daily cycle, a weekly dip and seeded noise
+ * (demo-style data; not a reference).
+ */
+export function syntheticLoad(opts: { fromMs: number; toMs: number; seed?: number; level?: number }): Reading[] {
+  const rnd = mulberry32(opts.seed ?? 7);
+  const out: Reading[] = [];
+  const level = opts.level ?? 500;
+  for (let t = opts.fromMs; t < opts.toMs; t += HOUR) {
+    const hour = (t / HOUR) % 24;
+    const day = Math.floor(t / (24 * HOUR)) % 7;
+    const v = level + 120 * Math.sin((2 * Math.PI * (hour - 6)) / 24) - (day >= 5 ? 60 : 0) + 15 * (rnd() - 0.5);
+    out.push({ t, v });
+  }
+  return out;
+}
+
+/** Resolve series entries through the real config loader (so tests use real defaults and checks). */
+export function resolved(entries: Array<Record<string, unknown>>, defaults: Record<string, unknown> = {}): ResolvedSeries[] {
+  const r = parseConfigObject({
+    defaults: { window: '3w', lags: ['1-24', 168], centres: 8, horizon: 24, refit: '5 * * * *', fit: { restarts: 1, widthIterations: 1 }, ...defaults },
+    series: entries,
+  });
+  if (!r.ok) throw new Error(r.issues.map((i) => `${i.path}: ${i.message}`).join('\n'));
+  return r.value.series;
+}
