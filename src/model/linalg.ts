@@ -12,21 +12,22 @@ export interface CholeskyFactor {
 }
 
 /**
- * Factor (A + lambda I) after scaling rows/columns by 1/sqrt(diag): the scaled matrix has a unit
+ * Factor (A + diag(lambda)) (lambda a scalar or one value per column) after scaling rows/columns by 1/sqrt(diag): the scaled matrix has a unit
  * diagonal, which removes the part of the condition number that comes from column units.
  * Returns null when a pivot is not positive (singular or indefinite to working precision).
  */
-export function choleskyScaled(a: Float64Array, p: number, lambda: number): CholeskyFactor | null {
+export function choleskyScaled(a: Float64Array, p: number, lambda: number | Float64Array): CholeskyFactor | null {
+  const lam = typeof lambda === 'number' ? new Float64Array(p).fill(lambda) : lambda;
   const scale = new Float64Array(p);
   for (let i = 0; i < p; i++) {
-    const v = a[i * p + i] + lambda;
+    const v = a[i * p + i] + lam[i];
     scale[i] = v > 0 ? 1 / Math.sqrt(v) : 1;
   }
   const l = new Float64Array(p * p);
   for (let i = 0; i < p; i++) {
     for (let j = 0; j <= i; j++) {
       // l_ij = (s_i s_j (a_ij + lambda δij) - Σ_{m<j} l_im l_jm) / l_jj
-      let s = (a[i * p + j] + (i === j ? lambda : 0)) * scale[i] * scale[j];
+      let s = (a[i * p + j] + (i === j ? lam[i] : 0)) * scale[i] * scale[j];
       const io = i * p;
       const jo = j * p;
       for (let m = 0; m < j; m++) s -= l[io + m] * l[jo + m];
@@ -129,17 +130,20 @@ export function residual(a: Float64Array, p: number, w: Float64Array, y: Float64
 export interface RidgeSolveResult {
   /** p x h weights. */
   w: Float64Array;
-  /** Ridge penalty actually used (raised when the system was singular). */
-  lambda: number;
+  /** Per-column ridge penalty actually used (raised when the system was singular). */
+  lambda: Float64Array;
+  /** The penalty was raised above the one asked for. */
+  raised: boolean;
   factor: CholeskyFactor;
 }
 
 /**
- * Ridge least squares min |A W - Y|^2 + lambda |W|^2 for all h columns of Y in one solve:
+ * Ridge least squares min |A W - Y|^2 + Σ_j lambda_j |W_j|^2 for all h columns of Y in one solve:
  * normal equations, equilibrated Cholesky, then `refineSteps` rounds of iterative refinement
- * W += (A^T A + lambda I)^-1 (A^T (Y - A W) - lambda W) with residuals from the original data,
+ * W += (A^T A + Λ)^-1 (A^T (Y - A W) - Λ W) with residuals from the original data,
  * which recovers the digits the normal equations lose on ill-conditioned designs.
- * When the system is singular to working precision lambda is raised (1e-12 relative, x100 steps).
+ * When the system is singular to working precision every lambda_j is raised to at least
+ * rel * mean diagonal (rel = 1e-12, 1e-10, ... 1).
  */
 export function ridgeSolve(
   a: Float64Array,
@@ -148,19 +152,22 @@ export function ridgeSolve(
   h: number,
   r0: number,
   r1: number,
-  lambda: number,
+  lambda: number | Float64Array,
   refineSteps: number,
   g = gram(a, p, r0, r1),
+  b = crossProduct(a, p, y, h, r0, r1),
 ): RidgeSolveResult | null {
-  const b = crossProduct(a, p, y, h, r0, r1);
-  let lam = lambda;
+  const asked = typeof lambda === 'number' ? new Float64Array(p).fill(lambda) : lambda;
+  let lam = asked;
+  let raised = false;
   let f = choleskyScaled(g, p, lam);
   if (f === null) {
     let tr = 0;
     for (let i = 0; i < p; i++) tr += g[i * p + i];
     const base = tr > 0 ? tr / p : 1;
     for (let rel = 1e-12; f === null && rel <= 1; rel *= 100) {
-      lam = Math.max(lambda, rel * base);
+      lam = asked.map((v) => Math.max(v, rel * base));
+      raised = true;
       f = choleskyScaled(g, p, lam);
     }
     if (f === null) return null;
@@ -183,12 +190,15 @@ export function ridgeSolve(
           for (let c = 0; c < h; c++) rhs[i * h + c] += v * res[ro + c];
         }
       }
-      if (lam !== 0) for (let i = 0; i < p * h; i++) rhs[i] -= lam * w[i];
+      for (let i = 0; i < p; i++) {
+        const li = lam[i];
+        if (li !== 0) for (let c = 0; c < h; c++) rhs[i * h + c] -= li * w[i * h + c];
+      }
       choleskySolve(f, rhs, h, dw);
       for (let i = 0; i < p * h; i++) w[i] += dw[i];
     }
   }
-  return { w, lambda: lam, factor: f };
+  return { w, lambda: lam, raised, factor: f };
 }
 
 /**

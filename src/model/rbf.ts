@@ -10,7 +10,7 @@ import { ModelError } from './errors.ts';
 import { checkDense, checkInt, checkNumber } from './check.ts';
 import { kmeans } from './kmeans.ts';
 import { dist2All, rowNorms2 } from './distance.ts';
-import { gram, residual, ridgeSolve } from './linalg.ts';
+import { crossProduct, gram, residual, ridgeSolve } from './linalg.ts';
 
 /** Defaults of every fit option (the one place they live). */
 export const DEFAULT_FIT_OPTIONS: Readonly<Required<Omit<FitOptions, 'warmStart'>>> = Object.freeze({
@@ -18,6 +18,7 @@ export const DEFAULT_FIT_OPTIONS: Readonly<Required<Omit<FitOptions, 'warmStart'
   widthMode: 'per-centre',
   ridge: 1e-6,
   linearTerms: true,
+  bias: true,
   restarts: 3,
   maxPasses: 100,
   widthIterations: 5,
@@ -28,13 +29,19 @@ export const DEFAULT_FIT_OPTIONS: Readonly<Required<Omit<FitOptions, 'warmStart'
   kmeansTol: 1e-4,
   warmMaxPasses: 10,
   refitAllRows: true,
+  ridgeSearch: true,
 });
+
+/** Candidate shrinkages of the Gaussian weights (relative to each column's Gram diagonal). */
+const RIDGE_GRID = [1e-4, 1e-2, 1, 100];
 
 /** Per-centre widths are kept within this factor of the shared width (tiny clusters give wild spreads). */
 const WIDTH_SPREAD_LIMIT = 10;
 /** Largest first step on log γ (a factor e^0.5 on the widest-moving width). */
 const FIRST_LOG_STEP = 0.5;
 const MAX_HALVINGS = 8;
+/** One round of iterative refinement on the final weight solve (Longley: 7.2 -> 11.1 digits). */
+const FINAL_REFINE_STEPS = 1;
 
 /** The fitted network in working form (typed arrays). */
 interface Net {
@@ -51,14 +58,14 @@ interface Net {
  * Design matrix rows [0, nRows): [1 | exp(-γ_k d2[n,k]) | x[n, linIdx]] -> out (nRows x P),
  * with P = 1 + K + linIdx.length.
  */
-export function designMatrix(d2: Float64Array, nRows: number, nCentres: number, gammas: Float64Array, x: Float64Array, nFeatures: number, linIdx: Int32Array, out: Float64Array): void {
+export function designMatrix(d2: Float64Array, nRows: number, nCentres: number, gammas: Float64Array, x: Float64Array, nFeatures: number, linIdx: Int32Array, out: Float64Array, bias = 1): void {
   const K = nCentres;
   const L = linIdx.length;
   const P = 1 + K + L;
   for (let n = 0; n < nRows; n++) {
     const o = n * P;
     const dOff = n * K;
-    out[o] = 1;
+    out[o] = bias;
     for (let k = 0; k < K; k++) out[o + 1 + k] = Math.exp(-gammas[k] * d2[dOff + k]);
     const xo = n * nFeatures;
     for (let j = 0; j < L; j++) out[o + 1 + K + j] = x[xo + linIdx[j]];
@@ -121,6 +128,8 @@ function resolveOptions(opts: FitOptions): Required<Omit<FitOptions, 'warmStart'
   checkInt(o.subsampleRows, 'opts.subsampleRows', 0);
   checkNumber(o.kmeansTol, 'opts.kmeansTol', 0, Infinity);
   checkInt(o.warmMaxPasses, 'opts.warmMaxPasses', 1);
+  if (typeof o.bias !== 'boolean') throw new ModelError('BAD_OPTION', 'bias must be true or false', { where: 'opts.bias', value: String(o.bias) }, 'set bias to a boolean');
+  if (typeof o.ridgeSearch !== 'boolean') throw new ModelError('BAD_OPTION', 'ridgeSearch must be true or false', { where: 'opts.ridgeSearch', value: String(o.ridgeSearch) }, 'set ridgeSearch to a boolean');
   if (typeof o.refitAllRows !== 'boolean') throw new ModelError('BAD_OPTION', 'refitAllRows must be true or false', { where: 'opts.refitAllRows', value: String(o.refitAllRows) }, 'set refitAllRows to a boolean');
   return o;
 }
@@ -242,22 +251,61 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
   let trial = new Float64Array(nSamples * P);
   const scratch = new Float64Array(nSamples * H);
 
-  /** Ridge penalty relative to the mean diagonal of the Gram matrix (see FitOptions.ridge). */
-  const solve = (rows: number): { w: Float64Array; lambda: number } => {
-    const g = gram(phi, P, 0, rows);
-    let tr = 0;
-    for (let i = 0; i < P; i++) tr += g[i * P + i];
-    const lam = o.ridge * (tr / P);
-    const r = ridgeSolve(phi, P, y.data, H, 0, rows, lam, 0, g);
+  const biasValue = o.bias ? 1 : 0;
+  /**
+   * Ridge per column. Linear columns: λ_j = ridge * G_jj, relative to the column's own scale so it
+   * does not depend on feature units. Gaussian columns share one unit (activations in [0, 1]):
+   * λ = gaussianRidge * mean_k G_kk, so a unit that barely fires on the training rows cannot get a
+   * huge weight. The bias is not penalised; without a bias its all-zero column gets a unit diagonal.
+   */
+  let gaussianRidge = o.ridge;
+  let ridgeRaised = false;
+  const penalties = (g: Float64Array, gRidge: number): Float64Array => {
+    const lam = new Float64Array(P);
+    let meanG = 0;
+    for (let j = 1; j <= K; j++) meanG += g[j * P + j] / K;
+    for (let j = 1; j <= K; j++) lam[j] = gRidge * meanG;
+    for (let j = K + 1; j < P; j++) lam[j] = o.ridge * g[j * P + j];
+    return lam;
+  };
+  const solveWith = (g: Float64Array, b: Float64Array, rows: number, refineSteps: number, gRidge: number): Float64Array => {
+    const r = ridgeSolve(phi, P, y.data, H, 0, rows, penalties(g, gRidge), refineSteps, g, b);
     if (r === null) {
       throw new ModelError('SINGULAR_SYSTEM', `the ${P}x${P} weight system is singular even with a raised ridge`, { where: 'fit', value: P }, 'raise opts.ridge or use fewer centres');
     }
-    return r;
+    if (r.raised) ridgeRaised = true;
+    return r.w;
+  };
+  const normal = (rows: number): { g: Float64Array; b: Float64Array } => {
+    const g = gram(phi, P, 0, rows);
+    if (!o.bias) g[0] = 1;
+    return { g, b: crossProduct(phi, P, y.data, H, 0, rows) };
+  };
+  const solve = (rows: number, refineSteps: number): Float64Array => {
+    const { g, b } = normal(rows);
+    return solveWith(g, b, rows, refineSteps, gaussianRidge);
   };
 
-  designMatrix(d2, nSamples, K, gammas, x.data, nFeatures, linIdx, phi);
-  let sol = solve(nTrain);
-  let w = sol.w;
+  designMatrix(d2, nSamples, K, gammas, x.data, nFeatures, linIdx, phi, biasValue);
+  let w: Float64Array;
+  if (nVal > 0 && o.ridgeSearch) {
+    // Shrinkage of the Gaussian weights chosen on the validation tail; the largest candidate is
+    // almost the linear model, so a series that is nearly linear is not made worse by the Gaussians.
+    const { g, b } = normal(nTrain);
+    let bestVal = Infinity;
+    w = new Float64Array(0);
+    for (const r of RIDGE_GRID.filter((v) => v > o.ridge).concat([o.ridge]).sort((a, c) => a - c)) {
+      const wr = solveWith(g, b, nTrain, 0, r);
+      const v = mseRows(phi, P, wr, y.data, H, nTrain, nSamples, scratch);
+      if (v < bestVal) {
+        bestVal = v;
+        w = wr;
+        gaussianRidge = r;
+      }
+    }
+  } else {
+    w = solve(nTrain, 0);
+  }
   let trainMse = mseRows(phi, P, w, y.data, H, 0, nTrain, scratch);
   let valMse = nVal > 0 ? mseRows(phi, P, w, y.data, H, nTrain, nSamples, scratch) : NaN;
   const judge = (tr: number, va: number): number => (nVal > 0 ? va : tr);
@@ -286,7 +334,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     const cand = new Float64Array(K);
     for (let half = 0; half <= MAX_HALVINGS; half++) {
       for (let k = 0; k < K; k++) cand[k] = gammas[k] * Math.exp(-(t / gmax) * grad[k]);
-      designMatrix(d2, nTrain, K, cand, x.data, nFeatures, linIdx, trial);
+      designMatrix(d2, nTrain, K, cand, x.data, nFeatures, linIdx, trial, biasValue);
       const f = mseRows(trial, P, w, y.data, H, 0, nTrain, scratch);
       if (f <= trainMse - 1e-4 * (t / gmax) * gnorm2) {
         found = true;
@@ -296,11 +344,11 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     }
     if (!found) break;
     // Weights re-solved exactly for the new widths; the step stands only if validation improves.
-    designMatrix(d2, nSamples, K, cand, x.data, nFeatures, linIdx, trial);
+    designMatrix(d2, nSamples, K, cand, x.data, nFeatures, linIdx, trial, biasValue);
     [phi, trial] = [trial, phi];
-    const candSol = solve(nTrain);
-    const candTrain = mseRows(phi, P, candSol.w, y.data, H, 0, nTrain, scratch);
-    const candVal = nVal > 0 ? mseRows(phi, P, candSol.w, y.data, H, nTrain, nSamples, scratch) : NaN;
+    const candW = solve(nTrain, 0);
+    const candTrain = mseRows(phi, P, candW, y.data, H, 0, nTrain, scratch);
+    const candVal = nVal > 0 ? mseRows(phi, P, candW, y.data, H, nTrain, nSamples, scratch) : NaN;
     const crit = judge(candTrain, candVal);
     const accepted = crit <= bestCrit;
     history.push({ iteration: it, trainMse: candTrain, validationMse: candVal, accepted });
@@ -310,8 +358,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     }
     const rel = bestCrit > 0 ? (bestCrit - crit) / bestCrit : 0;
     gammas = cand.slice();
-    sol = candSol;
-    w = candSol.w;
+    w = candW;
     trainMse = candTrain;
     valMse = candVal;
     bestCrit = crit;
@@ -319,12 +366,10 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     if (rel < o.widthTol) break;
   }
 
-  let finalMse = trainMse;
-  if (nVal > 0 && o.refitAllRows) {
-    sol = solve(nSamples);
-    w = sol.w;
-    finalMse = mseRows(phi, P, w, y.data, H, 0, nSamples, scratch);
-  }
+  // Final weights for the chosen widths, with iterative refinement.
+  const finalRows = nVal > 0 && o.refitAllRows ? nSamples : nTrain;
+  w = solve(finalRows, FINAL_REFINE_STEPS);
+  const finalMse = mseRows(phi, P, w, y.data, H, 0, finalRows, scratch);
 
   // Weights in the model layout: bias row, K Gaussian rows, then one row per feature (0 if left out).
   const nLinRows = o.linearTerms ? nFeatures : 0;
@@ -356,7 +401,8 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     nTrainRows: nTrain,
     nValidationRows: nVal,
     warmStarted: warm !== undefined,
-    lambda: sol.lambda,
+    gaussianRidge,
+    ridgeRaised,
   };
   return { model, report };
 }

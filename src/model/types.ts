@@ -45,10 +45,16 @@ export interface KMeansResult {
 export interface FitOptions {
   nCentres: number;
   widthMode: WidthMode;
-  /** Ridge penalty, relative: lambda = ridge * trace(Phi^T Phi) / nColumns. */
+  /**
+   * Ridge penalty, relative (unit-free; 0 = plain least squares): Gaussian weights get
+   * ridge * mean diagonal of the Gaussian block of Phi^T Phi, each linear weight ridge * its own
+   * diagonal entry; the bias is not penalised.
+   */
   ridge: number;
   /** Add linear terms of the inputs beside the Gaussian units. */
   linearTerms: boolean;
+  /** Fit a bias (intercept) column. Default true; false only for pure interpolation networks (its weight row is then 0). */
+  bias?: boolean;
   restarts: number;
   maxPasses: number;
   /** Maximum alternating (weights <-> widths) iterations. */
@@ -68,6 +74,11 @@ export interface FitOptions {
   warmMaxPasses?: number;
   /** After choosing widths on the validation tail, solve the final weights on all rows. Default true. */
   refitAllRows?: boolean;
+  /**
+   * Choose a stronger shrinkage of the Gaussian weights (from ridge, 1e-4, 1e-2, 1, 100) on the
+   * validation tail, so a nearly linear series falls back to its linear terms. Default true.
+   */
+  ridgeSearch?: boolean;
 }
 
 /** A fitted network as plain data; JSON round-trips give bit-identical predictions. */
@@ -108,8 +119,10 @@ export interface FitReport {
   nValidationRows: number;
   /** Centres and widths came from opts.warmStart. */
   warmStarted: boolean;
-  /** Absolute ridge penalty of the final solve (raised automatically if the system was singular). */
-  lambda: number;
+  /** Relative ridge used on the Gaussian weights (opts.ridge, or the one chosen by ridgeSearch). */
+  gaussianRidge: number;
+  /** The solve was singular at the asked ridge and the penalty was raised to make it definite. */
+  ridgeRaised: boolean;
 }
 
 export interface Prediction {

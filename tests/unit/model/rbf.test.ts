@@ -1,0 +1,249 @@
+import { describe, expect, it } from 'vitest';
+import fc from 'fast-check';
+import { Matrix, solve as mlSolve } from 'ml-matrix';
+import { DEFAULT_FIT_OPTIONS, fitRbf, ModelError, parseModel, predictRbf, serializeModel } from '../../../src/model/index.ts';
+import { designMatrix, logGammaGradient, mseRows } from '../../../src/model/rbf.ts';
+import { dist2All } from '../../../src/model/distance.ts';
+import type { Dense, FitOptions, RbfModel } from '../../../src/model/types.ts';
+import { dense, lagSamples, mse, noise, sliceRows } from './helpers.ts';
+
+const opts = (o: Partial<FitOptions> = {}): FitOptions => ({ ...DEFAULT_FIT_OPTIONS, ...o });
+
+/** A smooth nonlinear series with a daily-like cycle and noise (invented, test data only). */
+function wavySeries(n: number, seed: number, amp = 3, noiseSd = 0.3): number[] {
+  const z = noise(seed);
+  return Array.from({ length: n }, (_, t) => 10 + amp * Math.sin((2 * Math.PI * t) / 24) + 0.5 * Math.sin((2 * Math.PI * t) / 24) ** 3 + noiseSd * z());
+}
+
+function errorOf(f: () => unknown): ModelError {
+  try {
+    f();
+  } catch (e) {
+    if (e instanceof ModelError) return e;
+    throw e;
+  }
+  throw new Error('expected a ModelError');
+}
+
+describe('interpolation (Micchelli 1986: Gaussian kernel matrices of distinct points are positive definite)', () => {
+  it('one centre on every sample and lambda = 0 reproduces the training targets', () => {
+    const z = noise(7);
+    const pts = Array.from({ length: 40 }, () => [2 * z(), 2 * z(), z()]);
+    const x = dense(pts);
+    const y = dense(pts.map(([a, b, c]) => [Math.sin(a) + b * c, Math.cos(b) - a, a * a]));
+    const { model, report } = fitRbf(x, y, opts({ nCentres: 40, ridge: 0, bias: false, linearTerms: false, widthIterations: 0, validationFraction: 0, restarts: 1 }));
+    expect(report.ridgeRaised).toBe(false);
+    // Every sample became a centre.
+    const c = model.centres;
+    for (const p of pts) expect(Array.from({ length: 40 }, (_, k) => k).some((k) => p.every((v, j) => c[k * 3 + j] === v))).toBe(true);
+    const pred = predictRbf(model, x);
+    for (let i = 0; i < y.data.length; i++) expect(pred.y.data[i]).toBeCloseTo(y.data[i], 7);
+    expect(Array.from(pred.novelty).every((v) => Math.abs(v - 1) < 1e-12)).toBe(true);
+  });
+});
+
+describe('width gradient', () => {
+  const { x, y } = lagSamples(wavySeries(260, 3), 4, 3);
+  const setup = (mode: 'shared' | 'per-centre') => {
+    const { model } = fitRbf(x, y, opts({ nCentres: 6, widthMode: mode, widthIterations: 0, validationFraction: 0 }));
+    const K = model.nCentres;
+    const P = 1 + K + x.cols;
+    const d2 = dist2All(x.data, x.rows, x.cols, Float64Array.from(model.centres), K);
+    const w = Float64Array.from(model.weights);
+    const lin = Int32Array.from({ length: x.cols }, (_, j) => j);
+    const mseAt = (g: Float64Array): number => {
+      const phi = new Float64Array(x.rows * P);
+      designMatrix(d2, x.rows, K, g, x.data, x.cols, lin, phi);
+      return mseRows(phi, P, w, y.data, y.cols, 0, x.rows);
+    };
+    const gam = Float64Array.from(model.gammas);
+    const phi = new Float64Array(x.rows * P);
+    designMatrix(d2, x.rows, K, gam, x.data, x.cols, lin, phi);
+    return { K, P, d2, w, gam, phi, mseAt };
+  };
+
+  it('analytic d MSE / d log gamma_k agrees with central finite differences (per-centre)', () => {
+    const { K, P, d2, w, gam, phi, mseAt } = setup('per-centre');
+    // Move the widths away from the fitted ones so the gradient is not near zero.
+    for (let k = 0; k < K; k++) gam[k] *= 1.5 + 0.2 * k;
+    designMatrix(d2, x.rows, K, gam, x.data, x.cols, Int32Array.from({ length: x.cols }, (_, j) => j), phi);
+    const g = logGammaGradient(phi, P, d2, K, gam, w, y.data, y.cols, 0, x.rows);
+    const h = 1e-5;
+    for (let k = 0; k < K; k++) {
+      const up = gam.slice();
+      const dn = gam.slice();
+      up[k] *= Math.exp(h);
+      dn[k] *= Math.exp(-h);
+      const fd = (mseAt(up) - mseAt(dn)) / (2 * h);
+      expect(Math.abs(g[k] - fd)).toBeLessThan(1e-6 * Math.max(1e-3, Math.abs(fd)));
+    }
+  });
+
+  it('shared width: the derivative is the sum over centres', () => {
+    const { K, P, d2, w, gam, phi, mseAt } = setup('shared');
+    const g = logGammaGradient(phi, P, d2, K, gam, w, y.data, y.cols, 0, x.rows);
+    const total = g.reduce((a, b) => a + b, 0);
+    const h = 1e-5;
+    const fd = (mseAt(gam.map((v) => v * Math.exp(h))) - mseAt(gam.map((v) => v * Math.exp(-h)))) / (2 * h);
+    expect(Math.abs(total - fd)).toBeLessThan(1e-6 * Math.max(1e-3, Math.abs(fd)));
+  });
+});
+
+describe('alternating updates and determinism (fast-check)', () => {
+  const cases = fc.record({
+    seed: fc.integer({ min: 0, max: 10000 }),
+    amp: fc.double({ min: 0.5, max: 5, noNaN: true }),
+    noiseSd: fc.double({ min: 0.05, max: 1, noNaN: true }),
+    k: fc.integer({ min: 2, max: 10 }),
+    mode: fc.constantFrom<'shared' | 'per-centre'>('shared', 'per-centre'),
+    linear: fc.boolean(),
+  });
+
+  it('never increase the validation error, and the reported error is the returned model’s error on the tail', () => {
+    fc.assert(
+      fc.property(cases, ({ seed, amp, noiseSd, k, mode, linear }) => {
+        const { x, y } = lagSamples(wavySeries(200, seed, amp, noiseSd), 5, 4);
+        const { model, report } = fitRbf(x, y, opts({ nCentres: k, widthMode: mode, linearTerms: linear, widthIterations: 6, widthTol: 0, validationFraction: 0.25, refitAllRows: false, seed, restarts: 1 }));
+        const acc = report.history.filter((e) => e.accepted);
+        for (let i = 1; i < acc.length; i++) expect(acc[i].validationMse).toBeLessThanOrEqual(acc[i - 1].validationMse);
+        expect(report.validationMse).toBeLessThanOrEqual(report.history[0].validationMse);
+        const nTrain = report.nTrainRows;
+        const pred = predictRbf(model, sliceRows(x, nTrain, x.rows));
+        const tail = sliceRows(y, nTrain, y.rows);
+        expect(mse(pred.y.data, tail.data)).toBeCloseTo(report.validationMse, 8);
+      }),
+      { numRuns: 30 },
+    );
+  });
+
+  it('the same seed gives identical models', () => {
+    fc.assert(
+      fc.property(cases, ({ seed, amp, noiseSd, k, mode, linear }) => {
+        const { x, y } = lagSamples(wavySeries(150, seed, amp, noiseSd), 4, 3);
+        const o = opts({ nCentres: k, widthMode: mode, linearTerms: linear, seed, subsampleRows: seed % 2 ? 80 : 0 });
+        expect(serializeModel(fitRbf(x, y, o).model)).toBe(serializeModel(fitRbf(x, y, o).model));
+      }),
+      { numRuns: 20 },
+    );
+  });
+});
+
+describe('model as data', () => {
+  it('JSON round trip gives bit-identical predictions and keeps meta', () => {
+    const { x, y } = lagSamples(wavySeries(300, 11), 6, 5);
+    const { model } = fitRbf(x, y, opts({ nCentres: 12 }));
+    model.meta = { trainedFromMs: 1_700_000_000_000, series: 'oskaveld-north' };
+    const back = parseModel(serializeModel(model));
+    expect(back).toEqual(model);
+    const a = predictRbf(model, x);
+    const b = predictRbf(back, x);
+    for (let i = 0; i < a.y.data.length; i++) expect(Object.is(a.y.data[i], b.y.data[i])).toBe(true);
+    for (let i = 0; i < a.novelty.length; i++) expect(Object.is(a.novelty[i], b.novelty[i])).toBe(true);
+  });
+
+  it('parseModel rejects damaged models naming the field', () => {
+    const { x, y } = lagSamples(wavySeries(120, 2), 3, 2);
+    const m = fitRbf(x, y, opts({ nCentres: 4 })).model;
+    const bad = (patch: Partial<RbfModel> | string): ModelError =>
+      errorOf(() => parseModel(typeof patch === 'string' ? patch : JSON.stringify({ ...m, ...patch })));
+    expect(bad('{"version":').code).toBe('BAD_MODEL');
+    expect(bad({ gammas: m.gammas.slice(1) }).detail.where).toBe('model.gammas');
+    expect(bad({ gammas: m.gammas.map((g, i) => (i === 2 ? -g : g)) }).detail.where).toBe('model.gammas[2]');
+    expect(bad({ weights: [...m.weights.slice(1), null as unknown as number] }).detail.where).toMatch(/^model.weights\[/);
+    expect(bad({ version: 2 as 1 }).detail.where).toBe('model.version');
+    expect(bad({ widthMode: 'wide' as 'shared' }).detail.where).toBe('model.widthMode');
+  });
+});
+
+describe('linear terms on a smooth, almost linear series', () => {
+  it('the network with linear terms is no worse than plain ridge linear regression (ml-matrix) on later data', () => {
+    const z = noise(5);
+    const v = Array.from({ length: 560 }, (_, t) => 40 + 0.25 * t + 1.5 * Math.sin((2 * Math.PI * t) / 300) + 0.2 * z());
+    const { x, y } = lagSamples(v, 6, 4);
+    const nFit = 400;
+    const xf = sliceRows(x, 0, nFit), yf = sliceRows(y, 0, nFit);
+    const xt = sliceRows(x, nFit, x.rows), yt = sliceRows(y, nFit, y.rows);
+    // Reference: ordinary least squares with intercept by ml-matrix (the ridge here is 0).
+    const design = (m: Dense) => new Matrix(Array.from({ length: m.rows }, (_, i) => [1, ...m.data.slice(i * m.cols, (i + 1) * m.cols)]));
+    const coef = mlSolve(design(xf), new Matrix(Array.from({ length: yf.rows }, (_, i) => Array.from(yf.data.slice(i * 4, i * 4 + 4)))));
+    const linPred = Float64Array.from(design(xt).mmul(coef).to1DArray());
+    const linMse = mse(linPred, yt.data);
+    const withLin = predictRbf(fitRbf(xf, yf, opts({ nCentres: 16, linearTerms: true })).model, xt);
+    const pure = predictRbf(fitRbf(xf, yf, opts({ nCentres: 16, linearTerms: false })).model, xt);
+    const rbfMse = mse(withLin.y.data, yt.data);
+    expect(rbfMse).toBeLessThanOrEqual(linMse * 1.01);
+    // Without linear terms the network cannot follow the trend beyond the training range.
+    expect(mse(pure.y.data, yt.data)).toBeGreaterThan(10 * linMse);
+    // The later inputs lie beyond the training data: novelty shows it.
+    expect(Math.max(...withLin.novelty.slice(-20))).toBeLessThan(0.05);
+  });
+});
+
+describe('warm start', () => {
+  it('a refit on a window shifted by one day reuses centres and widths and fits as well', () => {
+    const v = wavySeries(700, 21);
+    const a = lagSamples(v, 8, 24, 8, 608);
+    const b = lagSamples(v, 8, 24, 32, 632);
+    const o = opts({ nCentres: 16 });
+    const first = fitRbf(a.x, a.y, o).model;
+    const cold = fitRbf(b.x, b.y, o);
+    const warm = fitRbf(b.x, b.y, { ...o, warmStart: first });
+    expect(warm.report.warmStarted).toBe(true);
+    expect(cold.report.warmStarted).toBe(false);
+    expect(warm.report.kmeansPasses).toBeLessThanOrEqual(DEFAULT_FIT_OPTIONS.warmMaxPasses);
+    expect(warm.report.validationMse).toBeLessThan(cold.report.validationMse * 1.05);
+    // A model of other dimensions is ignored, not misused.
+    const other = fitRbf(a.x, a.y, opts({ nCentres: 8 })).model;
+    expect(fitRbf(b.x, b.y, { ...o, warmStart: other }).report.warmStarted).toBe(false);
+  });
+});
+
+describe('bad input', () => {
+  const { x, y } = lagSamples(wavySeries(100, 1), 3, 2);
+
+  it('NaN in targets names y, row and column', () => {
+    const yb = { ...y, data: y.data.slice() };
+    yb.data[7 * 2 + 1] = Number.NaN;
+    const e = errorOf(() => fitRbf(x, yb, opts({ nCentres: 4 })));
+    expect(e.code).toBe('NON_FINITE');
+    expect(e.detail).toMatchObject({ where: 'y', row: 7, col: 1 });
+    expect(e.message).toMatch(/^NON_FINITE y row=7 col=1:/);
+  });
+
+  it('mismatched rows, too many centres and unknown options are errors', () => {
+    expect(errorOf(() => fitRbf(x, sliceRows(y, 0, 10), opts({ nCentres: 4 }))).code).toBe('DIMENSION_MISMATCH');
+    expect(errorOf(() => fitRbf(sliceRows(x, 0, 5), sliceRows(y, 0, 5), opts({ nCentres: 6 }))).code).toBe('TOO_FEW_SAMPLES');
+    expect(errorOf(() => fitRbf(x, y, opts({ widthMode: 'wide' as 'shared' }))).detail.where).toBe('opts.widthMode');
+    expect(errorOf(() => fitRbf(x, y, opts({ validationFraction: 1.5 }))).detail.where).toBe('opts.validationFraction');
+    const m = fitRbf(x, y, opts({ nCentres: 4 })).model;
+    expect(errorOf(() => predictRbf(m, sliceRows(lagSamples(wavySeries(50, 1), 4, 2).x, 0, 3))).code).toBe('DIMENSION_MISMATCH');
+    const xn = { ...x, data: x.data.slice() };
+    xn.data[5] = Number.POSITIVE_INFINITY;
+    expect(errorOf(() => predictRbf(m, xn)).detail).toMatchObject({ where: 'x', row: 1, col: 2 });
+  });
+
+  it('a constant feature is handled: finite forecasts, zero linear weight, even with ridge 0', () => {
+    const xc = new Float64Array(x.rows * 4);
+    for (let i = 0; i < x.rows; i++) {
+      xc.set(x.data.subarray(i * 3, i * 3 + 3), i * 4);
+      xc[i * 4 + 3] = 2.5; // e.g. a holiday flag that never fires in the window
+    }
+    const xd = { data: xc, rows: x.rows, cols: 4 };
+    for (const ridge of [0, 1e-6]) {
+      const { model, report } = fitRbf(xd, y, opts({ nCentres: 5, ridge }));
+      expect(Number.isFinite(report.trainMse)).toBe(true);
+      const wRow = (1 + 5 + 3) * 2;
+      expect(model.weights.slice(wRow, wRow + 2)).toEqual([0, 0]);
+      expect(Array.from(predictRbf(model, xd).y.data).every(Number.isFinite)).toBe(true);
+    }
+  });
+
+  it('duplicate rows (fewer distinct points than centres) still give finite forecasts', () => {
+    const xs = dense(Array.from({ length: 30 }, (_, i) => [i % 3, (i % 3) * 2]));
+    const ys = dense(Array.from({ length: 30 }, (_, i) => [i % 3]));
+    const { model, report } = fitRbf(xs, ys, opts({ nCentres: 6, ridge: 0, linearTerms: false }));
+    expect(report.ridgeRaised).toBe(true); // raised automatically for the singular system
+    const p = predictRbf(model, xs);
+    for (let i = 0; i < 30; i++) expect(p.y.data[i]).toBeCloseTo(i % 3, 4);
+  });
+});
