@@ -170,41 +170,71 @@ export function planFeatures(target: RegularSeries, exo: Record<string, RegularS
   };
 }
 
-function at(values: Float64Array, i: number): number {
-  return i >= 0 && i < values.length ? values[i] : NaN;
+function at(values: Float64Array, i: number, limit: number): number {
+  return i >= 0 && i < values.length && i < limit ? values[i] : NaN;
 }
+
+/**
+ * Exclusive bound on the indices that may be read when everything after `known` is unknown:
+ * an interpolated run that contains `known` was filled from a value after it, so that whole run
+ * counts as missing.
+ */
+export function knownLimit(series: RegularSeries, known: number): number {
+  const f = series.filled;
+  let p = Math.min(known, series.values.length - 1);
+  if (f !== undefined) while (p >= 0 && f[p] === 1) p--;
+  return p + 1;
+}
+
+/** Per-call read limits (exclusive indices) of the target and each exogenous series. */
+export interface ReadLimits {
+  target: number;
+  exo: number[];
+}
+
+const NO_LIMITS: ReadLimits = { target: Infinity, exo: [] };
 
 /**
  * Raw (unscaled) features of origin o into out[offset .. offset + nFeatures). Missing inputs
  * are written as NaN; returns how many were missing.
  */
-export function rawFeatures(layout: FeatureLayout, target: RegularSeries, o: number, out: Float64Array, offset = 0): number {
+export function rawFeatures(
+  layout: FeatureLayout,
+  target: RegularSeries,
+  o: number,
+  out: Float64Array,
+  offset = 0,
+  limits: ReadLimits = NO_LIMITS,
+): number {
   const v = target.values;
+  const tl = limits.target;
   let j = offset;
   let missing = 0;
   for (const k of layout.lags) {
-    const x = at(v, o - k + 1);
+    const x = at(v, o - k + 1, tl);
     if (Number.isNaN(x)) missing++;
     out[j++] = x;
   }
   if (layout.seasonalInputs) {
     for (let h = 1; h <= layout.horizon; h++) {
-      const x = at(v, o + seasonalRel(h, layout.seasonSteps));
+      const x = at(v, o + seasonalRel(h, layout.seasonSteps), tl);
       if (Number.isNaN(x)) missing++;
       out[j++] = x;
     }
   }
-  for (const e of layout.exo) {
+  for (let q = 0; q < layout.exo.length; q++) {
+    const e = layout.exo[q];
+    const el = limits.exo[q] ?? Infinity;
     const ev = e.series.values;
     const oe = o + e.shift;
     for (const k of e.lags) {
-      const x = at(ev, oe - k + 1);
+      const x = at(ev, oe - k + 1, el);
       if (Number.isNaN(x)) missing++;
       out[j++] = x;
     }
     if (e.atTarget) {
       for (let h = 1; h <= layout.horizon; h++) {
-        const x = at(ev, oe + h);
+        const x = at(ev, oe + h, el);
         if (Number.isNaN(x)) missing++;
         out[j++] = x;
       }
@@ -219,7 +249,7 @@ export function rawFeatures(layout: FeatureLayout, target: RegularSeries, o: num
  * absolute -> 0, level -> values[o], seasonal -> values[o + h - S * ceil(h / S)].
  * Returns false if a base value is missing.
  */
-export function targetBase(layout: FeatureLayout, target: RegularSeries, o: number, out: Float64Array, offset = 0): boolean {
+export function targetBase(layout: FeatureLayout, target: RegularSeries, o: number, out: Float64Array, offset = 0, limit = Infinity): boolean {
   const v = target.values;
   const H = layout.horizon;
   if (layout.targetMode === 'absolute') {
@@ -227,13 +257,13 @@ export function targetBase(layout: FeatureLayout, target: RegularSeries, o: numb
     return true;
   }
   if (layout.targetMode === 'level') {
-    const b = at(v, o);
+    const b = at(v, o, limit);
     for (let h = 0; h < H; h++) out[offset + h] = b;
     return !Number.isNaN(b);
   }
   let ok = true;
   for (let h = 1; h <= H; h++) {
-    const b = at(v, o + seasonalRel(h, layout.seasonSteps));
+    const b = at(v, o + seasonalRel(h, layout.seasonSteps), limit);
     if (Number.isNaN(b)) ok = false;
     out[offset + h - 1] = b;
   }
@@ -307,8 +337,11 @@ export interface SampleSelection {
 /**
  * Training samples of the window (lastKnownIndex - windowSteps, lastKnownIndex]: every input,
  * base and target of every sample lies inside it. Origins with a missing input, base or target
- * are skipped, as are origins whose own step was interpolated from a later value. The scaler is
- * fitted on the kept samples only.
+ * are skipped. Interpolation reads the value after a gap, so two more rules keep later values
+ * out: an interpolated run that reaches past lastKnownIndex counts as missing, and an origin whose
+ * own step (or the newest step of a lagged exogenous input) was interpolated is skipped. The
+ * scaler is fitted on the kept samples only. Throws TOO_LITTLE_HISTORY (details: needed,
+ * available) when the window cannot hold minSamples samples or fewer remain after skipping.
  */
 export function buildSamples(
   target: RegularSeries,
@@ -327,10 +360,9 @@ export function buildSamples(
   const lo = Math.max(0, L - W + 1);
   const hi = Math.min(L, target.values.length - 1);
   const oMin = lo + layout.lookback - 1;
-  const oMax = hi - H;
   const needed = layout.lookback + H + minSamples - 1;
   const available = Math.max(0, hi - lo + 1);
-  if (oMax < oMin + minSamples - 1) {
+  if (hi - H < oMin + minSamples - 1) {
     const reason = W < needed
       ? `windowSteps=${W} is shorter than the ${needed} steps needed`
       : `only ${available} steps of history are available`;
@@ -341,35 +373,40 @@ export function buildSamples(
       { needed, available, windowSteps: W, lookback: layout.lookback, horizon: H },
     );
   }
+  // Values interpolated from a value after L count as unknown (targets stop before them).
+  const limits: ReadLimits = {
+    target: knownLimit(target, hi),
+    exo: layout.exo.map((e) => knownLimit(e.series, hi + e.shift)),
+  };
+  const oMax = limits.target - 1 - H;
 
-  const nCand = oMax - oMin + 1;
+  const nCand = Math.max(0, oMax - oMin + 1);
   const raw = new Float64Array(nCand * nF);
   const y = new Float64Array(nCand * H);
   const base = new Float64Array(nCand * H);
   const origins = new Int32Array(nCand);
   const v = target.values;
+  // Per exogenous series: newest index read relative to the exo origin, and the index it is known through.
+  const exoNewest = layout.exo.map((e) => (e.atTarget ? H : 1 - Math.min(...e.lags)));
+  const exoKnown = layout.exo.map((e) => (e.atTarget ? H : 0));
   let n = 0;
   let skippedMissing = 0;
   let skippedFilledOrigin = 0;
   let firstMissingOrigin = -1;
   for (let o = oMin; o <= oMax; o++) {
-    if (fillReachesPast(target.filled, o, o)) {
-      skippedFilledOrigin++;
-      continue;
-    }
-    let leaks = false;
-    for (const e of layout.exo) {
-      if (e.lags.length > 0 && !e.atTarget) {
-        const newest = o + e.shift - Math.min(...e.lags) + 1;
-        if (fillReachesPast(e.series.filled, newest, o + e.shift)) leaks = true;
-      }
+    // An interpolated origin value was filled from a later value: its inputs would know the future.
+    let leaks = fillReachesPast(target.filled, o, o);
+    for (let q = 0; q < layout.exo.length && !leaks; q++) {
+      const e = layout.exo[q];
+      const oe = o + e.shift;
+      if (fillReachesPast(e.series.filled, oe + exoNewest[q], oe + exoKnown[q])) leaks = true;
     }
     if (leaks) {
       skippedFilledOrigin++;
       continue;
     }
-    const missing = rawFeatures(layout, target, o, raw, n * nF);
-    let ok = missing === 0 && targetBase(layout, target, o, base, n * H);
+    const missing = rawFeatures(layout, target, o, raw, n * nF, limits);
+    let ok = missing === 0 && targetBase(layout, target, o, base, n * H, limits.target);
     if (ok) {
       for (let h = 1; h <= H; h++) {
         const t = v[o + h];
@@ -437,7 +474,10 @@ export interface ForecastInput {
 /**
  * Feature vector for forecasting the H steps after originIndex with a scaler from buildSamples.
  * Exogenous inputs used at target time must be present (observed or forecast) up to the last
- * target step in the exogenous series passed in.
+ * target step in the exogenous series passed in. Interpolated runs that reach past the origin
+ * (or past the last target step, for at-target exogenous inputs) count as missing, exactly as in
+ * training. Missing inputs throw MISSING_INPUT (field = feature name, at = its instant) unless
+ * policy.imputeMissingMax allows imputing them with the training mean.
  */
 export function buildForecastInput(
   target: RegularSeries,
@@ -462,7 +502,12 @@ export function buildForecastInput(
   }
   if (!Number.isInteger(originIndex)) badOption(s, 'originIndex', `originIndex=${originIndex} is not a whole number`, 'pass a grid index');
   const x = new Float64Array(nF);
-  const missing = rawFeatures(layout, target, originIndex, x);
+  // Interpolated runs that reach past what is known at the origin count as missing.
+  const limits: ReadLimits = {
+    target: knownLimit(target, originIndex),
+    exo: layout.exo.map((e) => knownLimit(e.series, originIndex + e.shift + (e.atTarget ? H : 0))),
+  };
+  const missing = rawFeatures(layout, target, originIndex, x, 0, limits);
   const imputed: string[] = [];
   if (missing > 0) {
     const allowed = policy.imputeMissingMax ?? 0;
@@ -491,7 +536,7 @@ export function buildForecastInput(
   }
   applyScaler(scaler, x);
   const base = new Float64Array(H);
-  if (!targetBase(layout, target, originIndex, base)) {
+  if (!targetBase(layout, target, originIndex, base, 0, limits.target)) {
     throw new SeriesError({
       code: 'MISSING_INPUT',
       series: s,
