@@ -5,7 +5,7 @@
  */
 import { readFileSync } from 'node:fs';
 import { dirname, isAbsolute, resolve as resolvePath } from 'node:path';
-import { parseDocument } from 'yaml';
+import { LineCounter, parseDocument } from 'yaml';
 import { z } from 'zod';
 import { ConfigSchema, SeriesEntrySchema, type Config } from './schema.ts';
 import { ConfigError, formatPath, type ConfigIssue, type ConfigIssueCode } from './errors.ts';
@@ -78,7 +78,9 @@ export function schemaNodeAt(segs: readonly PropertyKey[]): JsonNode | undefined
 }
 
 function optionHint(segs: readonly PropertyKey[]): string {
-  const n = schemaNodeAt(segs);
+  let n = schemaNodeAt(segs);
+  // List items and union branches have no doc line of their own: use the option's.
+  for (let k = segs.length - 1; (!n || !n.description) && k >= 0; k--) n = schemaNodeAt(segs.slice(0, k));
   if (!n) return '';
   const parts: string[] = [];
   if (n.description) parts.push(n.description.replace(/\.$/, ''));
@@ -268,7 +270,8 @@ export function parseConfigObject(raw: unknown, opts: LoadOptions = {}): LoadRes
 
 /** Validates YAML text. */
 export function parseConfigText(text: string, opts: LoadOptions = {}): LoadResult {
-  const doc = parseDocument(text, { prettyErrors: false, uniqueKeys: true });
+  const lineCounter = new LineCounter();
+  const doc = parseDocument(text, { prettyErrors: false, uniqueKeys: true, lineCounter });
   if (doc.errors.length) {
     return {
       ok: false,
@@ -277,7 +280,7 @@ export function parseConfigText(text: string, opts: LoadOptions = {}): LoadResul
         path: '',
         message: e.message.split('\n')[0],
         hint: 'fix the YAML syntax at that line (indentation, quotes, duplicate keys)',
-        ...(e.linePos?.[0] ? { line: e.linePos[0].line } : {}),
+        line: lineCounter.linePos(e.pos[0]).line,
       })),
     };
   }

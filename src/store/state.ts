@@ -227,11 +227,23 @@ export class StateStore {
   }
 
   // ---- issued-forecast ledger ----
-  /** Records every step of the batches as issued (idempotent per series + issue time + lead). */
+  /**
+   * Records every step of the batches as issued (idempotent per series + issue time + lead) and
+   * keeps each batch as the series' latest issued forecast (latestIssued), unless a newer one is there.
+   */
   recordIssued(batches: ForecastBatch[]): void {
     this.#tx(() => {
-      for (const b of batches) for (const p of b.points) this.#s.putLedger.run(b.series, b.issuedAt, p.lead, p.t, p.value, JSON.stringify(p.bands));
+      for (const b of batches) {
+        for (const p of b.points) this.#s.putLedger.run(b.series, b.issuedAt, p.lead, p.t, p.value, JSON.stringify(p.bands));
+        const key = `latest:${b.series}`;
+        const prev = this.#s.getKv.get(key);
+        if (!prev || (JSON.parse(prev.value) as ForecastBatch).issuedAt <= b.issuedAt) this.#s.putKv.run(key, JSON.stringify(b), b.issuedAt);
+      }
     });
+  }
+  /** The newest forecast batch recorded for the series (survives scoring and restarts). */
+  latestIssued(series: string): ForecastBatch | null {
+    return this.getJson<ForecastBatch>(`latest:${series}`) ?? null;
   }
   /** Ledger entries of the series whose target time is <= upToMs (matured), oldest target first. */
   matured(series: string, upToMs: number): LedgerEntry[] {
