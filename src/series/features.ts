@@ -207,35 +207,42 @@ export function rawFeatures(
   limits: ReadLimits = NO_LIMITS,
 ): number {
   const v = target.values;
-  const tl = limits.target;
+  const tEnd = Math.min(v.length, limits.target); // readable target indices: [0, tEnd)
+  const H = layout.horizon;
   let j = offset;
   let missing = 0;
-  for (const k of layout.lags) {
-    const x = at(v, o - k + 1, tl);
-    if (Number.isNaN(x)) missing++;
+  const lags = layout.lags;
+  for (let q = 0; q < lags.length; q++) {
+    const i = o - lags[q] + 1;
+    const x = i >= 0 && i < tEnd ? v[i] : NaN;
+    if (x !== x) missing++;
     out[j++] = x;
   }
   if (layout.seasonalInputs) {
-    for (let h = 1; h <= layout.horizon; h++) {
-      const x = at(v, o + seasonalRel(h, layout.seasonSteps), tl);
-      if (Number.isNaN(x)) missing++;
+    const S = layout.seasonSteps;
+    for (let h = 1; h <= H; h++) {
+      const i = o + h - S * Math.ceil(h / S);
+      const x = i >= 0 && i < tEnd ? v[i] : NaN;
+      if (x !== x) missing++;
       out[j++] = x;
     }
   }
   for (let q = 0; q < layout.exo.length; q++) {
     const e = layout.exo[q];
-    const el = limits.exo[q] ?? Infinity;
     const ev = e.series.values;
+    const eEnd = Math.min(ev.length, limits.exo[q] ?? Infinity);
     const oe = o + e.shift;
-    for (const k of e.lags) {
-      const x = at(ev, oe - k + 1, el);
-      if (Number.isNaN(x)) missing++;
+    for (let p = 0; p < e.lags.length; p++) {
+      const i = oe - e.lags[p] + 1;
+      const x = i >= 0 && i < eEnd ? ev[i] : NaN;
+      if (x !== x) missing++;
       out[j++] = x;
     }
     if (e.atTarget) {
-      for (let h = 1; h <= layout.horizon; h++) {
-        const x = at(ev, oe + h, el);
-        if (Number.isNaN(x)) missing++;
+      for (let h = 1; h <= H; h++) {
+        const i = oe + h;
+        const x = i >= 0 && i < eEnd ? ev[i] : NaN;
+        if (x !== x) missing++;
         out[j++] = x;
       }
     }
@@ -280,37 +287,43 @@ function fillReachesPast(filled: Uint8Array | undefined, i: number, end: number)
 /** Fit the per-feature standardisation on rows of raw (nRows x nFeatures). */
 export function fitScaler(raw: Float64Array, nRows: number, layout: FeatureLayout): Scaler {
   const nF = layout.nFeatures;
-  const mean = new Array<number>(nF).fill(0);
-  const scale = new Array<number>(nF).fill(1);
-  const constant = new Array<boolean>(nF).fill(false);
+  // two row-major passes (cache friendly): mean, then population variance sum((x - mean)^2) / n
+  const mu = new Float64Array(nF);
+  const ss = new Float64Array(nF);
+  for (let r = 0; r < nRows; r++) {
+    const off = r * nF;
+    for (let f = 0; f < nF; f++) mu[f] += raw[off + f];
+  }
+  if (nRows > 0) for (let f = 0; f < nF; f++) mu[f] /= nRows;
+  for (let r = 0; r < nRows; r++) {
+    const off = r * nF;
+    for (let f = 0; f < nF; f++) {
+      const d = raw[off + f] - mu[f];
+      ss[f] += d * d;
+    }
+  }
+  const mean = new Array<number>(nF);
+  const scale = new Array<number>(nF);
+  const constant = new Array<boolean>(nF);
   for (let f = 0; f < nF; f++) {
-    // two-pass mean and population variance
-    let sum = 0;
-    for (let r = 0; r < nRows; r++) sum += raw[r * nF + f];
-    const mu = nRows > 0 ? sum / nRows : 0;
-    let ss = 0;
-    for (let r = 0; r < nRows; r++) {
-      const d = raw[r * nF + f] - mu;
-      ss += d * d;
-    }
-    const sd = nRows > 0 ? Math.sqrt(ss / nRows) : 0;
+    const sd = nRows > 0 ? Math.sqrt(ss[f] / nRows) : 0;
     const w = layout.groupWeights[layout.groups[f]];
-    mean[f] = mu;
-    if (!(sd > CONSTANT_REL_TOL * Math.max(1, Math.abs(mu))) || w === 0) {
-      constant[f] = true;
-      scale[f] = 1;
-    } else {
-      scale[f] = sd / w;
-    }
+    mean[f] = mu[f];
+    constant[f] = !(sd > CONSTANT_REL_TOL * Math.max(1, Math.abs(mu[f]))) || w === 0;
+    scale[f] = constant[f] ? 1 : sd / w;
   }
   return { mean, scale, constant, featureNames: layout.names.slice() };
 }
 
-/** x = (raw - mean) / scale; constant features map to 0. In place on raw[offset .. offset + nF). */
-export function applyScaler(scaler: Scaler, raw: Float64Array, offset = 0): void {
+/** x = (raw - mean) / scale; constant features map to 0. In place on nRows rows of raw from offset. */
+export function applyScaler(scaler: Scaler, raw: Float64Array, offset = 0, nRows = 1): void {
   const nF = scaler.mean.length;
-  for (let f = 0; f < nF; f++) {
-    raw[offset + f] = scaler.constant[f] ? 0 : (raw[offset + f] - scaler.mean[f]) / scaler.scale[f];
+  const mean = Float64Array.from(scaler.mean);
+  const mult = new Float64Array(nF);
+  for (let f = 0; f < nF; f++) mult[f] = scaler.constant[f] ? 0 : 1 / scaler.scale[f];
+  for (let r = 0; r < nRows; r++) {
+    const off = offset + r * nF;
+    for (let f = 0; f < nF; f++) raw[off + f] = (raw[off + f] - mean[f]) * mult[f];
   }
 }
 
@@ -436,9 +449,10 @@ export function buildSamples(
   }
 
   const scaler = fitScaler(raw, n, layout);
-  for (let r = 0; r < n; r++) applyScaler(scaler, raw, r * nF);
+  applyScaler(scaler, raw, 0, n);
   const stats: SampleStats = { candidates: nCand, skippedMissing, skippedFilledOrigin, usableSamples: n };
-  const dense = (data: Float64Array, cols: number): Dense => ({ data: data.slice(0, n * cols), rows: n, cols });
+  // subarray, not a copy: the unused tail of skipped candidates stays in the buffer
+  const dense = (data: Float64Array, cols: number): Dense => ({ data: data.subarray(0, n * cols), rows: n, cols });
   return {
     x: dense(raw, nF),
     y: dense(y, H),
