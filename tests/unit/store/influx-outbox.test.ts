@@ -239,7 +239,7 @@ describe('Outbox', () => {
     sink.error = () => Object.assign(new StoreError('WRITE_REJECTED', 'partial write: field type conflict dropped=1'), { refusedPoints: 1 });
     box.add(lines('score', 0, 3));
     await clock.advance(1_000);
-    expect(box.stats()).toMatchObject({ buffered: 0, rejected: 1, retries: 0 });
+    expect(box.stats()).toMatchObject({ buffered: 0, rejected: 1, written: 2, retries: 0 });
     expect(clock.pending()).toEqual([]);
     expect(records.find((r) => r.level === 'error')?.msg).toBe('store refused points');
   });

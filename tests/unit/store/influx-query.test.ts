@@ -17,90 +17,10 @@ import { buildReadQuery, parseQueryAnswer, quoteIdent, quoteString } from '../..
 import { buildFluxQuery, parseFluxTime } from '../../../src/store/influx/flux.ts';
 import { resolveSelector, type ResolvedSelector } from '../../../src/store/influx/selector.ts';
 import { StoreError } from '../../../src/store/influx/errors.ts';
+import { splitFlux, splitInfluxQL } from '../../helpers/query-decoders.ts';
 
 const FROM = Date.UTC(2026, 0, 5);
 const TO = Date.UTC(2026, 0, 12);
-
-interface Split {
-  skeleton: string;
-  literals: string[];
-}
-
-function splitInfluxQL(q: string): Split {
-  let skeleton = '';
-  const literals: string[] = [];
-  let i = 0;
-  while (i < q.length) {
-    const c = q[i]!;
-    if (c !== "'" && c !== '"') {
-      skeleton += c;
-      i++;
-      continue;
-    }
-    let val = '';
-    i++;
-    for (;;) {
-      if (i >= q.length) throw new Error(`unterminated literal in ${q}`);
-      const ch = q[i]!;
-      if (ch === c) {
-        i++;
-        break;
-      }
-      if (ch === '\n') throw new Error('raw newline inside a literal');
-      if (ch === '\\') {
-        const n = q[i + 1];
-        if (n === 'n') val += '\n';
-        else if (n === '\\' || n === '"' || n === "'") val += n;
-        else throw new Error(`bad escape \\${n}`);
-        i += 2;
-        continue;
-      }
-      val += ch;
-      i++;
-    }
-    literals.push(val);
-    skeleton += c === "'" ? '<S>' : '<I>';
-  }
-  return { skeleton, literals };
-}
-
-function splitFlux(q: string): Split {
-  let skeleton = '';
-  const literals: string[] = [];
-  let i = 0;
-  while (i < q.length) {
-    const c = q[i]!;
-    if (c !== '"') {
-      skeleton += c;
-      i++;
-      continue;
-    }
-    let val = '';
-    i++;
-    for (;;) {
-      if (i >= q.length) throw new Error('unterminated string');
-      const ch = q[i]!;
-      if (ch === '"') {
-        i++;
-        break;
-      }
-      if (ch === '$' && q[i + 1] === '{') throw new Error('interpolation inside a string literal');
-      if (ch === '\\') {
-        const n = q[i + 1];
-        const map: Record<string, string> = { n: '\n', r: '\r', t: '\t', '\\': '\\', '"': '"', $: '$' };
-        if (n === undefined || !(n in map)) throw new Error(`bad escape \\${n}`);
-        val += map[n];
-        i += 2;
-        continue;
-      }
-      val += ch;
-      i++;
-    }
-    literals.push(val);
-    skeleton += '<S>';
-  }
-  return { skeleton, literals };
-}
 
 /** Strings made mostly of the characters that break naive quoting. */
 const hostile = fc.string({
