@@ -52,10 +52,16 @@ export type OriginOutcome =
     }
   | { ok: false; originIndex: number; originMs: number; code: string; message: string; hint: string };
 
+/** Hold-out residuals of one method: residualsByLead[h][k] at origin originMs[k]. */
+export interface Calibration {
+  residualsByLead: number[][];
+  originMs: number[];
+}
+
 export interface ChainResult {
   outcomes: OriginOutcome[];
-  /** Hold-out residuals per method and lead (only when task.calibrate). */
-  calibration?: Record<string, number[][]>;
+  /** Hold-out residuals per method (only when task.calibrate). */
+  calibration?: Record<string, Calibration>;
 }
 
 function windowStart(settings: ForecastSettings, originIndex: number): number {
@@ -66,15 +72,16 @@ function windowStart(settings: ForecastSettings, originIndex: number): number {
  * Hold-out residuals of the baselines at every origin v = vFirst .. originIndex - H (the model's
  * hold-out origins): the ridge baseline is fitted on the window up to vFirst only.
  */
-function baselineCalibration(task: ChainTask, originIndex: number, vFirstIn: number | undefined): Record<string, number[][]> {
+function baselineCalibration(task: ChainTask, originIndex: number, vFirstIn: number | undefined): Record<string, Calibration> {
   const { settings, target } = task;
   const H = settings.features.horizon;
   const values = target.values;
   const ws = Math.max(0, windowStart(settings, originIndex));
   const vFirst = vFirstIn ?? originIndex - H - Math.floor((originIndex - ws + 1) * settings.fit.validationFraction) + 1;
-  const out: Record<string, number[][]> = {};
-  for (const b of task.seasonal) out[b.name] = Array.from({ length: H }, () => []);
-  out[RIDGE_METHOD] = Array.from({ length: H }, () => []);
+  const out: Record<string, Calibration> = {};
+  const empty = (): Calibration => ({ residualsByLead: Array.from({ length: H }, () => []), originMs: [] });
+  for (const b of task.seasonal) out[b.name] = empty();
+  out[RIDGE_METHOD] = empty();
   if (vFirst + H > originIndex || vFirst <= ws) return out;
   let ridge: ReturnType<typeof fitRidgeAr> | null = null;
   try {
@@ -82,18 +89,20 @@ function baselineCalibration(task: ChainTask, originIndex: number, vFirstIn: num
   } catch {
     ridge = null;
   }
-  for (let v = vFirst; v + H <= originIndex; v++) {
+  // Evenly spread over the tail, at most calibrationCap origins (as the model's hold-out).
+  const nV = originIndex - H - vFirst + 1;
+  const keep = Math.min(nV, task.calibrationCap);
+  for (let k = 0; k < keep; k++) {
+    const v = vFirst + (keep === nV ? k : Math.floor((k * nV) / keep));
     const fc: Record<string, Float64Array> = {};
     for (const b of task.seasonal) fc[b.name] = seasonalNaiveForecast(values, v, H, b.m);
     if (ridge) fc[RIDGE_METHOD] = forecastRidgeAr(ridge, values, v);
     for (const [name, f] of Object.entries(fc)) {
-      for (let h = 0; h < H; h++) {
-        const r = values[v + 1 + h] - f[h];
-        if (Number.isFinite(r)) out[name][h].push(r);
-      }
+      // NaN residuals are kept here (skipped when added to a pool) so leads stay aligned with originMs.
+      for (let h = 0; h < H; h++) out[name].residualsByLead[h].push(values[v + 1 + h] - f[h]);
+      out[name].originMs.push(target.startMs + v * target.stepMs);
     }
   }
-  for (const name of Object.keys(out)) out[name] = out[name].map((l) => l.slice(-task.calibrationCap));
   return out;
 }
 
@@ -105,7 +114,7 @@ export function runChain(task: ChainTask, onOrigin?: (o: OriginOutcome) => void)
   const values = target.values;
   const outcomes: OriginOutcome[] = [];
   let warm: FittedForecaster | undefined;
-  let calibration: Record<string, number[][]> | undefined;
+  let calibration: Record<string, Calibration> | undefined;
   for (let i = 0; i < task.origins.length; i++) {
     const o = task.origins[i];
     const originMs = target.startMs + o * target.stepMs;
@@ -130,8 +139,9 @@ export function runChain(task: ChainTask, onOrigin?: (o: OriginOutcome) => void)
         baselineErrors[RIDGE_METHOD] = errorInfo(err).message;
       }
       if (wantCalibration) {
-        calibration = baselineCalibration(task, o, holdout?.firstOrigin);
-        calibration[MODEL_METHOD] = holdout ? holdout.residualsByLead.map((l) => l.slice(-task.calibrationCap)) : Array.from({ length: H }, () => []);
+        calibration = baselineCalibration(task, o, (holdout as HoldoutResiduals | undefined)?.firstOrigin);
+        const h0 = holdout as HoldoutResiduals | undefined;
+        calibration[MODEL_METHOD] = h0 ? { residualsByLead: h0.residualsByLead, originMs: h0.originMs } : { residualsByLead: Array.from({ length: H }, () => []), originMs: [] };
       }
       outcome = {
         ok: true,

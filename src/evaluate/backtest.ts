@@ -13,7 +13,7 @@ import type { RegularSeries } from '../series/types.ts';
 import type { ForecastSettings } from '../forecast/types.ts';
 import { ForecastError, isoAt } from '../forecast/errors.ts';
 import { scoreForecasts, type MetricSet } from './metrics.ts';
-import { addResiduals, applyBands, bandOffsets, createResidualPool, DEFAULT_RESIDUAL_CAPACITY, type BandOptions } from './bands.ts';
+import { addResiduals, applyBands, bandOffsets, createResidualPool, originPhase, DEFAULT_RESIDUAL_CAPACITY, type BandOptions } from './bands.ts';
 import { seasonalBaselines } from './baselines.ts';
 import { MODEL_METHOD, RIDGE_METHOD, type ChainTask, type OriginOutcome } from './backtest-chain.ts';
 import { defaultWorkers, runChains } from './pool.ts';
@@ -205,10 +205,18 @@ export async function backtest(target: RegularSeries, exo: Record<string, Regula
 
   // Bands: for each origin, from the residuals matured before it (lead h of origin j matures at o_j + h).
   const bandsByOrigin: Array<Record<string, number[][]>> = good.map(() => ({}));
+  // Errors depend on the hour a forecast is issued at, so the pool keeps the origin's phase in the season.
+  const phases = settings.features.seasonSteps;
+  const phaseOf = (ms: number): number => originPhase(ms, settings.stepMs, phases);
   for (const name of methodNames) {
-    const pool = createResidualPool(H, cap);
-    const seed = calibration[name] ?? [];
-    for (let h = 0; h < H && h < seed.length; h++) addResiduals(pool, h + 1, seed[h]);
+    const pool = createResidualPool(H, cap, phases);
+    const seed = calibration[name];
+    if (seed) {
+      for (let k = 0; k < seed.originMs.length; k++) {
+        const p = phaseOf(seed.originMs[k]);
+        for (let h = 0; h < H && h < seed.residualsByLead.length; h++) addResiduals(pool, h + 1, [seed.residualsByLead[h][k]], p);
+      }
+    }
     const addedLeads = new Int32Array(good.length);
     for (let i = 0; i < good.length; i++) {
       const oi = good[i].originIndex;
@@ -216,11 +224,11 @@ export async function backtest(target: RegularSeries, exo: Record<string, Regula
         const oj = good[j].originIndex;
         while (addedLeads[j] < H && oj + addedLeads[j] + 1 <= oi) {
           const h = addedLeads[j];
-          addResiduals(pool, h + 1, [good[j].actual[h] - good[j].forecasts[name][h]]);
+          addResiduals(pool, h + 1, [good[j].actual[h] - good[j].forecasts[name][h]], phaseOf(good[j].originMs));
           addedLeads[j]++;
         }
       }
-      const off = bandOffsets(pool, quantiles, opts.band);
+      const off = bandOffsets(pool, quantiles, { ...opts.band, phase: phaseOf(good[i].originMs) });
       bandsByOrigin[i][name] = applyBands(good[i].forecasts[name], off).map((b) => Array.from(b));
     }
   }

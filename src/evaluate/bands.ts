@@ -15,49 +15,86 @@
 import { quantileKey } from './metrics.ts';
 
 export interface ResidualPool {
-  version: 1;
+  version: 2;
   horizon: number;
+  /**
+   * Phases of the origin within the season (e.g. 24 hours of the day for an hourly series with a
+   * daily season): errors depend on the hour a forecast is issued at, so bands prefer residuals of
+   * origins at the same phase. 1 = no phases.
+   */
+  phases: number;
   /** Most residuals kept per lead; older ones are dropped first. */
   capacityPerLead: number;
   /** byLead[h - 1]: residuals (actual - forecast) at lead h, oldest first. */
   byLead: number[][];
+  /** phaseByLead[h - 1][i]: origin phase of byLead[h - 1][i]. */
+  phaseByLead: number[][];
   /** Residuals dropped because a lead was full (kept for logs and metrics). */
   dropped: number;
 }
 
-/** Default bound on residuals kept per lead (about four months of daily origins). */
-export const DEFAULT_RESIDUAL_CAPACITY = 120;
-/** Fewest residuals a lead needs before its own band is used; below this, neighbouring leads are pooled. */
+/**
+ * Default bound on residuals kept per lead: two weeks of hourly forecasts. Shorter pools can miss
+ * whole weekdays (a five-day pool of hourly residuals may hold no weekend), which shows up as
+ * bands that are too narrow on the days the pool did not see.
+ */
+export const DEFAULT_RESIDUAL_CAPACITY = 336;
+/** Fewest residuals a band is formed from; below this, neighbouring phases, then leads, are pooled. */
 export const DEFAULT_MIN_RESIDUALS_PER_LEAD = 30;
 
-export function createResidualPool(horizon: number, capacityPerLead = DEFAULT_RESIDUAL_CAPACITY): ResidualPool {
+export function createResidualPool(horizon: number, capacityPerLead = DEFAULT_RESIDUAL_CAPACITY, phases = 1): ResidualPool {
   if (!Number.isInteger(horizon) || horizon < 1) throw new RangeError(`horizon must be a positive integer, got ${horizon}`);
   if (!Number.isInteger(capacityPerLead) || capacityPerLead < 1) throw new RangeError(`capacityPerLead must be a positive integer, got ${capacityPerLead}`);
-  return { version: 1, horizon, capacityPerLead, byLead: Array.from({ length: horizon }, () => []), dropped: 0 };
+  if (!Number.isInteger(phases) || phases < 1) throw new RangeError(`phases must be a positive integer, got ${phases}`);
+  return {
+    version: 2,
+    horizon,
+    phases,
+    capacityPerLead,
+    byLead: Array.from({ length: horizon }, () => []),
+    phaseByLead: Array.from({ length: horizon }, () => []),
+    dropped: 0,
+  };
 }
 
-/** Appends residuals for one lead (1..H), skipping non-finite ones; returns how many were dropped for space. */
-export function addResiduals(pool: ResidualPool, lead: number, residuals: ArrayLike<number>): number {
+/**
+ * Phase of a forecast origin within the season: the step of the season the origin falls on,
+ * counted from the Unix epoch (0 .. phases - 1). Origins one season apart share a phase.
+ */
+export function originPhase(originMs: number, stepMs: number, phases: number): number {
+  if (phases <= 1) return 0;
+  const step = Math.floor(originMs / stepMs);
+  return ((step % phases) + phases) % phases;
+}
+
+/** Appends residuals of origins at `phase` for one lead (1..H), skipping non-finite ones; returns how many were dropped for space. */
+export function addResiduals(pool: ResidualPool, lead: number, residuals: ArrayLike<number>, phase = 0): number {
   if (!Number.isInteger(lead) || lead < 1 || lead > pool.horizon) throw new RangeError(`lead must be in 1..${pool.horizon}, got ${lead}`);
   const list = pool.byLead[lead - 1];
+  const phaseList = pool.phaseByLead[lead - 1];
+  const p = pool.phases > 1 ? ((Math.floor(phase) % pool.phases) + pool.phases) % pool.phases : 0;
   for (let i = 0; i < residuals.length; i++) {
     const r = residuals[i];
-    if (Number.isFinite(r)) list.push(r);
+    if (Number.isFinite(r)) {
+      list.push(r);
+      phaseList.push(p);
+    }
   }
   const over = list.length - pool.capacityPerLead;
   if (over > 0) {
     list.splice(0, over);
+    phaseList.splice(0, over);
     pool.dropped += over;
     return over;
   }
   return 0;
 }
 
-/** Adds the residuals of one whole forecast: actual[h] - forecast[h] at lead h + 1. */
-export function addForecastResiduals(pool: ResidualPool, actual: ArrayLike<number>, forecast: ArrayLike<number>): number {
+/** Adds the residuals of one whole forecast issued at `phase`: actual[h] - forecast[h] at lead h + 1. */
+export function addForecastResiduals(pool: ResidualPool, actual: ArrayLike<number>, forecast: ArrayLike<number>, phase = 0): number {
   let dropped = 0;
   const h = Math.min(pool.horizon, actual.length, forecast.length);
-  for (let i = 0; i < h; i++) dropped += addResiduals(pool, i + 1, [actual[i] - forecast[i]]);
+  for (let i = 0; i < h; i++) dropped += addResiduals(pool, i + 1, [actual[i] - forecast[i]], phase);
   return dropped;
 }
 
@@ -76,56 +113,74 @@ export interface BandOffsets {
   offsets: Float64Array[];
   /** Residuals behind each lead's band (after pooling). */
   nUsed: Int32Array;
-  /** Half-width of the lead neighbourhood pooled for each lead (0 = its own residuals only). */
+  /** Half-width of the lead neighbourhood pooled for each lead (0 = its own lead only). */
   poolRadius: Int32Array;
+  /** Half-width of the phase neighbourhood pooled for each lead (0 = the origin's own phase only). */
+  phaseRadius: Int32Array;
 }
 
 export interface BandOptions {
-  /** Fewest residuals per lead before pooling with neighbouring leads (default 30). */
+  /** Fewest residuals per band before pooling neighbouring phases, then leads (default 30). */
   minPerLead?: number;
   /** Fewest residuals (after pooling) for any band at all; below it the band is NaN (default 8). */
   minTotal?: number;
 }
 
 /**
- * Band offsets per lead. A lead with fewer than minPerLead residuals borrows from the leads
- * h +- 1, h +- 2, ... until it has enough (errors of neighbouring leads have similar spread);
- * with fewer than minTotal in the whole pool, no band is given (NaN) rather than a made-up one.
+ * Band offsets per lead for a forecast issued at `phase`. Residuals of the same lead and phase
+ * come first; while fewer than minPerLead, the phase neighbourhood widens (phase +- 1, +- 2, ...,
+ * circular) up to all phases, then neighbouring leads are added (h +- 1, ...; errors of
+ * neighbouring leads have similar spread). With fewer than minTotal in the end, no band is given
+ * (NaN) rather than a made-up one.
  */
-export function bandOffsets(pool: ResidualPool, quantiles: readonly number[], opts: BandOptions = {}): BandOffsets {
+export function bandOffsets(pool: ResidualPool, quantiles: readonly number[], opts: BandOptions & { phase?: number } = {}): BandOffsets {
   const minPerLead = opts.minPerLead ?? DEFAULT_MIN_RESIDUALS_PER_LEAD;
   const minTotal = opts.minTotal ?? 8;
   const H = pool.horizon;
+  const P = pool.phases;
+  const phase = P > 1 ? ((Math.floor(opts.phase ?? 0) % P) + P) % P : 0;
+  const maxPhaseRadius = Math.floor(P / 2);
   const offsets = quantiles.map(() => new Float64Array(H).fill(Number.NaN));
   const nUsed = new Int32Array(H);
   const poolRadius = new Int32Array(H);
-  const sortedByLead = pool.byLead.map((l) => Float64Array.from(l).sort());
+  const phaseRadius = new Int32Array(H);
+  // Residuals of every lead bucketed by circular phase distance to the wanted phase.
+  const byDist: number[][][] = pool.byLead.map((list, h) => {
+    const buckets: number[][] = Array.from({ length: maxPhaseRadius + 1 }, () => []);
+    const ph = pool.phaseByLead[h];
+    for (let i = 0; i < list.length; i++) {
+      const d0 = Math.abs((ph[i] ?? 0) - phase);
+      buckets[Math.min(d0, P - d0)].push(list[i]);
+    }
+    return buckets;
+  });
   for (let h = 0; h < H; h++) {
-    let radius = 0;
-    let parts: Float64Array[] = [sortedByLead[h]];
-    let count = sortedByLead[h].length;
-    while (count < minPerLead && radius < H) {
-      radius++;
-      const extra: Float64Array[] = [];
-      if (h - radius >= 0) extra.push(sortedByLead[h - radius]);
-      if (h + radius < H) extra.push(sortedByLead[h + radius]);
-      if (extra.length === 0) break;
-      parts = parts.concat(extra);
-      count += extra.reduce((s, a) => s + a.length, 0);
+    const chosen: number[] = [];
+    let rp = 0;
+    for (; rp <= maxPhaseRadius; rp++) {
+      for (const r of byDist[h][rp]) chosen.push(r);
+      if (chosen.length >= minPerLead) break;
     }
-    nUsed[h] = count;
-    poolRadius[h] = radius;
-    if (count < minTotal) continue;
-    const merged = new Float64Array(count);
-    let at = 0;
-    for (const p of parts) {
-      merged.set(p, at);
-      at += p.length;
+    rp = Math.min(rp, maxPhaseRadius);
+    let rl = 0;
+    while (chosen.length < minPerLead && rl < H) {
+      rl++;
+      let added = false;
+      for (const hh of [h - rl, h + rl]) {
+        if (hh < 0 || hh >= H) continue;
+        added = true;
+        for (const b of byDist[hh]) for (const r of b) chosen.push(r);
+      }
+      if (!added) break;
     }
-    if (parts.length > 1) merged.sort();
-    for (let i = 0; i < quantiles.length; i++) offsets[i][h] = conformalQuantile(merged, quantiles[i]);
+    nUsed[h] = chosen.length;
+    poolRadius[h] = rl;
+    phaseRadius[h] = rp;
+    if (chosen.length < minTotal) continue;
+    const sorted = Float64Array.from(chosen).sort();
+    for (let i = 0; i < quantiles.length; i++) offsets[i][h] = conformalQuantile(sorted, quantiles[i]);
   }
-  return { quantiles: [...quantiles], offsets, nUsed, poolRadius };
+  return { quantiles: [...quantiles], offsets, nUsed, poolRadius, phaseRadius };
 }
 
 /** Band values: bands[i][h] = values[h] + offsets[i][h]. */
@@ -139,10 +194,10 @@ export function applyBands(values: ArrayLike<number>, band: BandOffsets): Float6
 
 /**
  * What the daemon calls: point forecast + stored residuals -> band values per lead, keyed by
- * quantile ("0.1" -> value) as the store's ForecastPoint.bands expects. Leads without a band get
- * an empty record.
+ * quantile ("0.1" -> value) as the store's ForecastPoint.bands expects; pass the origin's phase
+ * (originPhase) when the pool has phases. Leads without a band get an empty record.
  */
-export function bandsForForecast(values: ArrayLike<number>, pool: ResidualPool, quantiles: readonly number[], opts: BandOptions = {}): Array<Record<string, number>> {
+export function bandsForForecast(values: ArrayLike<number>, pool: ResidualPool, quantiles: readonly number[], opts: BandOptions & { phase?: number } = {}): Array<Record<string, number>> {
   const band = bandOffsets(pool, quantiles, opts);
   const bands = applyBands(values, band);
   const out: Array<Record<string, number>> = [];

@@ -27,8 +27,8 @@ export const AUTO_CANDIDATES = Object.freeze({
   start: { nCentres: 32, widthMode: 'shared' as WidthMode, ridge: 1e-3 },
 });
 
-/** Hold-out residuals kept per lead in a FittedForecaster (keeps it small). */
-export const HOLDOUT_RESIDUALS_PER_LEAD = 120;
+/** Most hold-out residuals handed over per lead (spread evenly over the validation tail). */
+export const HOLDOUT_RESIDUALS_PER_LEAD = 336;
 
 export type Tunable = 'nCentres' | 'widthMode' | 'ridge';
 
@@ -55,8 +55,10 @@ export interface AutoReport {
 }
 
 export interface HoldoutResiduals {
-  /** residualsByLead[h - 1]: actual - forecast on the validation tail at lead h (newest last, capped). */
+  /** residualsByLead[h - 1][k]: actual - forecast at lead h of hold-out origin k (time order, evenly thinned to the cap). */
   residualsByLead: number[][];
+  /** originMs[k]: time of hold-out origin k (for phase-aware bands). */
+  originMs: number[];
   /** Index (into the series) of the first hold-out origin; the hold-out model saw only targets up to it. */
   firstOrigin: number;
   nOrigins: number;
@@ -222,13 +224,19 @@ function holdoutFit(samples: SampleSet, split: { nTrain: number; vFrom: number }
   return { mse: ss / Math.max(1, xv.rows * H), residuals };
 }
 
-function holdoutFromResiduals(residuals: Float64Array, samples: SampleSet, vFrom: number, mse: number): HoldoutResiduals {
+function holdoutFromResiduals(residuals: Float64Array, samples: SampleSet, vFrom: number, mse: number, target: RegularSeries): HoldoutResiduals {
   const H = samples.y.cols;
   const nV = samples.x.rows - vFrom;
   const byLead: number[][] = Array.from({ length: H }, () => []);
-  const first = Math.max(0, nV - HOLDOUT_RESIDUALS_PER_LEAD);
-  for (let r = first; r < nV; r++) for (let h = 0; h < H; h++) byLead[h].push(residuals[r * H + h]);
-  return { residualsByLead: byLead, firstOrigin: samples.originIndex[vFrom], nOrigins: nV, validationMse: mse };
+  const originMs: number[] = [];
+  // Spread over the whole tail (not just its newest part) so every weekday and hour is represented.
+  const keep = Math.min(nV, HOLDOUT_RESIDUALS_PER_LEAD);
+  for (let k = 0; k < keep; k++) {
+    const r = keep === nV ? k : Math.floor((k * nV) / keep);
+    for (let h = 0; h < H; h++) byLead[h].push(residuals[r * H + h]);
+    originMs.push(target.startMs + samples.originIndex[vFrom + r] * target.stepMs);
+  }
+  return { residualsByLead: byLead, originMs, firstOrigin: samples.originIndex[vFrom], nOrigins: nV, validationMse: mse };
 }
 
 /**
@@ -307,11 +315,11 @@ export function fitAt(target: RegularSeries, exo: Record<string, RegularSeries>,
       best = stepBest;
     }
     auto = { tunables: [...tunables], searched: true, candidates, validationSamples: samples.x.rows - split.vFrom, validationFrom };
-    if (best) holdout = holdoutFromResiduals(best.residuals, samples, split.vFrom, best.mse);
+    if (best) holdout = holdoutFromResiduals(best.residuals, samples, split.vFrom, best.mse, target);
   }
   if (wantHoldout && opts.onHoldout && !holdout && split) {
     const r = holdoutFit(samples, split, settings, chosen);
-    holdout = holdoutFromResiduals(r.residuals, samples, split.vFrom, r.mse);
+    holdout = holdoutFromResiduals(r.residuals, samples, split.vFrom, r.mse, target);
   }
 
   const warmModel = warmUsable ? warm.model : undefined;
