@@ -25,6 +25,8 @@ export type StoreErrorCode =
   | 'SERIES_NAME_INVALID'
   /** A point that cannot be written (time not an epoch-ms integer). */
   | 'POINT_INVALID'
+  /** An adapter option that cannot work (e.g. a measurement name line protocol cannot carry). */
+  | 'OPTION_INVALID'
   /** The adapter was closed. */
   | 'STORE_CLOSED';
 

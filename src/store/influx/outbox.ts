@@ -231,6 +231,7 @@ export class Outbox {
             const refused = (err as StoreError & { refusedPoints?: number }).refusedPoints ?? batch.length;
             this.#remove(batch);
             this.#stats.rejected += Math.min(refused, batch.length);
+            this.#stats.written += batch.length - Math.min(refused, batch.length);
             this.#o.logger.error({ store: this.#o.store, err: err.toJSON(), points: batch.length, refused }, 'store refused points');
             continue;
           }

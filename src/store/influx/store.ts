@@ -56,6 +56,7 @@ export class InfluxStore implements SeriesStore {
     this.#url = opts.url.replace(/\/+$/, '');
     this.#timeoutMs = opts.timeoutMs ?? INFLUX_DEFAULTS.timeoutMs;
     this.#m = { ...INFLUX_DEFAULTS.measurements, ...(opts.measurements ?? {}) };
+    for (const [role, name] of Object.entries(this.#m)) checkMeasurementName(role, name);
     this.#logger = opts.logger ?? silentLogger;
     const batchSize = opts.batchSize ?? INFLUX_DEFAULTS.batchSize;
 
@@ -244,6 +245,20 @@ export class InfluxStore implements SeriesStore {
   /** Counters for /metrics and /readyz. */
   stats(): InfluxStoreStats {
     return { ...this.#outbox.stats(), readFailures: this.#readFailures };
+  }
+}
+
+/**
+ * Measurement names radcast writes. A line starting with "#" is a comment in line protocol (the
+ * server would silently ignore every point), and control characters cannot be carried.
+ */
+function checkMeasurementName(role: string, name: string): void {
+  // eslint-disable-next-line no-control-regex
+  if (name === '' || name.startsWith('#') || /[\u0000-\u001f\u007f]/.test(name) || name.endsWith('\\')) {
+    throw new StoreError('OPTION_INVALID', `measurement name ${JSON.stringify(name)} (${role}) cannot be written in line protocol`, {
+      at: `store.influxdb.measurements.${role}`,
+      hint: 'use a name that does not start with "#", has no control characters and does not end in a backslash',
+    });
   }
 }
 
