@@ -233,6 +233,8 @@ export class Outbox {
             this.#stats.rejected += Math.min(refused, batch.length);
             this.#stats.written += batch.length - Math.min(refused, batch.length);
             this.#o.logger.error({ store: this.#o.store, err: err.toJSON(), points: batch.length, refused }, 'store refused points');
+            // The server answered: not an outage, so the backoff starts over.
+            this.#onSuccess();
             continue;
           }
           throw err;
