@@ -109,7 +109,7 @@ export function httpStoreError(status: number, body: string, at: string, opts: {
       hint: 'check the user/password or token (store.influxdb tokenEnv/tokenFile, passwordEnv/passwordFile) and its permissions',
     });
   }
-  if (/database not found|bucket .* not found|bucket not found/i.test(body)) {
+  if (/database not found|bucket .*not found|bucket not found|could not find bucket/i.test(body)) {
     return new StoreError('STORE_DATABASE_MISSING', `${at}: ${text}`, {
       ...opts,
       at,
