@@ -98,6 +98,26 @@ export function addForecastResiduals(pool: ResidualPool, actual: ArrayLike<numbe
   return dropped;
 }
 
+/** A stored residual: lead, target time (epoch ms) and actual - forecast. */
+export interface ResidualRow {
+  lead: number;
+  t: number;
+  residual: number;
+}
+
+/**
+ * Builds a pool from stored rows (oldest first), deriving each row's origin phase from its target
+ * time: origin = t - lead * stepMs. This is how the daemon turns its residual table into bands.
+ */
+export function residualPoolFromRows(rows: readonly ResidualRow[], opts: { horizon: number; stepMs: number; phases?: number; capacityPerLead?: number }): ResidualPool {
+  const pool = createResidualPool(opts.horizon, opts.capacityPerLead ?? DEFAULT_RESIDUAL_CAPACITY, opts.phases ?? 1);
+  for (const r of rows) {
+    if (!Number.isInteger(r.lead) || r.lead < 1 || r.lead > opts.horizon) continue;
+    addResiduals(pool, r.lead, [r.residual], originPhase(r.t - r.lead * opts.stepMs, opts.stepMs, pool.phases));
+  }
+  return pool;
+}
+
 /** Split-conformal order statistic of ascending-sorted residuals (see the module comment). */
 export function conformalQuantile(sorted: ArrayLike<number>, q: number): number {
   const n = sorted.length;

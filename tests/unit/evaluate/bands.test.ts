@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { addForecastResiduals, addResiduals, applyBands, bandOffsets, bandsForForecast, conformalQuantile, createResidualPool, originPhase } from '../../../src/evaluate/bands.ts';
+import { addForecastResiduals, addResiduals, applyBands, bandOffsets, bandsForForecast, conformalQuantile, createResidualPool, originPhase, residualPoolFromRows } from '../../../src/evaluate/bands.ts';
 import { MetricAccumulator } from '../../../src/evaluate/metrics.ts';
 import { gaussian, rng } from '../forecast/fixtures.ts';
 
@@ -111,5 +111,25 @@ describe('coverage on synthetic data with known noise', () => {
     // The exact 80% band of N(0, 4) is +-1.2816 * 2 wide: 5.13.
     expect(r.width!).toBeGreaterThan(4.6);
     expect(r.width!).toBeLessThan(5.7);
+  });
+});
+
+describe('pool from stored rows', () => {
+  it('derives the origin phase from target time and lead', () => {
+    const hour = 3_600_000;
+    const t0 = Date.UTC(2024, 0, 1, 0);
+    // Origin 05:00, lead 3 -> target 08:00; origin 23:00, lead 1 -> target 00:00 next day.
+    const pool = residualPoolFromRows(
+      [
+        { lead: 3, t: t0 + 8 * hour, residual: 1.5 },
+        { lead: 1, t: t0 + 24 * hour, residual: -2 },
+        { lead: 9, t: t0, residual: 7 }, // lead beyond the horizon: ignored
+      ],
+      { horizon: 4, stepMs: hour, phases: 24 },
+    );
+    expect(pool.byLead[2]).toEqual([1.5]);
+    expect(pool.phaseByLead[2]).toEqual([5]);
+    expect(pool.byLead[0]).toEqual([-2]);
+    expect(pool.phaseByLead[0]).toEqual([23]);
   });
 });
