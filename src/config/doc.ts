@@ -101,8 +101,8 @@ export function renderConfigReference(): string {
     ...HEAD,
   );
   rows(p.defaults, '', out);
-  out.push('', '## `series`', '', `${p.series.description ?? ''} Each entry has the series options above plus:`, '', ...HEAD);
-  for (const k of ['name', 'source']) rows(seriesItem.properties![k], k, out, seriesItem.required?.includes(k));
+  out.push('', '## `series`', '', `${p.series.description ?? ''} Each entry has the series options above plus its name:`, '', ...HEAD);
+  for (const k of ['name']) rows(seriesItem.properties![k], k, out, seriesItem.required?.includes(k));
   out.push('');
   return out.join('\n');
 }

@@ -219,6 +219,7 @@ export const OutputSchema = z
 
 /** Options every series has; `defaults` sets them for all, each series entry may override any. */
 export const seriesOptionsShape = {
+  source: SourceSchema.prefault({}),
   step: duration('Fixed step of the series (readings are bucketed to it).').default('1h'),
   timeZone: z
     .string()
@@ -260,7 +261,6 @@ export const SeriesEntrySchema = z
       .max(200)
       .regex(/^[^\s\u0000-\u001f]+$/, { message: 'series names may not contain spaces or control characters' })
       .meta({ description: 'Series name: the key of its readings and of everything radcast writes for it.' }),
-    source: SourceSchema.prefault({}),
     ...seriesOptionsShape,
   })
   .meta({ description: 'One forecast series.' });

@@ -92,34 +92,54 @@ export function loadSecrets(config: Config, deps: SecretDeps = {}): { secrets: S
 
   const values = new Map<string, string>();
   const issues: ConfigIssue[] = [];
+  // Several series inheriting one webhook from `defaults` share a source: report a failing source once.
+  const failed = new Map<string, { issue: ConfigIssue; users: string[] }>();
+  const cache = new Map<string, string>();
   for (const r of refs) {
-    let v: string | undefined;
-    if (r.env) {
+    const source = r.env ? `env:${r.env}` : `file:${r.file}`;
+    const earlier = failed.get(source);
+    if (earlier) {
+      if (r.series) earlier.users.push(r.series);
+      continue;
+    }
+    const fail = (message: string, hint: string) => {
+      const issue: ConfigIssue = { code: 'SECRET_MISSING', path: r.path, series: r.series, message, hint };
+      issues.push(issue);
+      failed.set(source, { issue, users: r.series ? [r.series] : [] });
+    };
+    let v = cache.get(source);
+    if (v === undefined && r.env) {
       v = env[r.env];
       if (v === undefined || v === '') {
-        issues.push({ code: 'SECRET_MISSING', path: r.path, series: r.series, message: `environment variable ${r.env} is not set or empty`, hint: `export ${r.env}=... before starting radcast, or use the *File option` });
+        fail(`environment variable ${r.env} is not set or empty`, `export ${r.env}=... before starting radcast, or use the *File option`);
         continue;
       }
-    } else if (r.file) {
+    } else if (v === undefined && r.file) {
       try {
         v = readFile(r.file).replace(/\r?\n$/, '');
       } catch (e) {
-        const code = (e as NodeJS.ErrnoException).code ?? 'unknown';
-        issues.push({ code: 'SECRET_MISSING', path: r.path, series: r.series, message: `cannot read secret file ${r.file} (${code})`, hint: 'check the path and that the radcast user may read it' });
+        fail(`cannot read secret file ${r.file} (${(e as NodeJS.ErrnoException).code ?? 'unknown'})`, 'check the path and that the radcast user may read it');
         continue;
       }
       if (v === '') {
-        issues.push({ code: 'SECRET_MISSING', path: r.path, series: r.series, message: `secret file ${r.file} is empty`, hint: 'write the secret into the file' });
+        fail(`secret file ${r.file} is empty`, 'write the secret into the file');
         continue;
       }
     }
     if (v === undefined) continue;
     const bad = r.check?.(v);
     if (bad) {
-      issues.push({ code: 'SECRET_MISSING', path: r.path, series: r.series, message: bad, hint: 'the value itself is not shown; check it where it is defined' });
+      fail(bad, 'the value itself is not shown; check it where it is defined');
       continue;
     }
+    cache.set(source, v);
     values.set(r.key, v);
+  }
+  for (const { issue, users } of failed.values()) {
+    if (users.length > 1) {
+      issue.message += ` (used by series ${users.join(', ')})`;
+      delete issue.series;
+    }
   }
   return { secrets: new Secrets(values), issues };
 }
