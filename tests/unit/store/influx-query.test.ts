@@ -1,15 +1,9 @@
 /**
  * Query text built from selectors: InfluxQL (v1) and Flux (v2). The property tests decode the
- * query the way the server's scanner would and check that (a) the query outside string literals
- * is exactly the one a harmless selector gives, and (b) each literal decodes back to the selector
- * value, whatever quotes, backslashes, newlines or "${" the value contains.
- *
- * Decoding rules used here:
- *  - InfluxQL: in '…' strings and "…" identifiers the escapes \\ \' \" \n are decoded, any other
- *    escape is an error and a raw newline ends the token as an error (influxql scanner, ScanString;
- *    from memory; checked against a real influxd in tests/integration/influx-injection.test.ts).
- *  - Flux: in "…" strings the escapes \" \\ \n \r \t \$ are decoded and an unescaped "${" starts
- *    interpolation (Flux language specification, "String literals"; from memory).
+ * query the way the server's scanner would (tests/helpers/query-decoders.ts, which names its
+ * sources) and check that (a) the query outside string literals is exactly the one a harmless
+ * selector gives, and (b) each literal decodes back to the selector value, whatever quotes,
+ * backslashes, newlines or "${" the value contains.
  */
 import { describe, expect, it } from 'vitest';
 import fc from 'fast-check';
