@@ -17,14 +17,14 @@ import type { ResolvedSeries } from '../config/resolve.ts';
 import type { ForecastBatch, ForecastPoint, HealthPoint, ScorePoint, SeriesStore, SourceSelector } from '../store/types.ts';
 import type { Reading, RegularSeries } from '../series/types.ts';
 import { regularize, lastValueIndex } from '../series/index.ts';
-import { addForecastResiduals, bandsForForecast, createResidualPool, DEFAULT_RESIDUAL_CAPACITY, type ResidualPool } from '../evaluate/bands.ts';
-import { quantileKey, scoreForecasts, seasonalScale, type MetricSet, type ScoredForecast } from '../evaluate/metrics.ts';
+import { bandsForForecast, DEFAULT_RESIDUAL_CAPACITY } from '../evaluate/bands.ts';
+import { MetricAccumulator, quantileKey, seasonalScale, type MetricSet } from '../evaluate/metrics.ts';
 import { systemClock, type Clock } from './clock.ts';
 import { Backoff } from './backoff.ts';
 import { DaemonError, canRetry, describeError, retryAfterMs, type ErrorRecord } from './errors.ts';
 import type { DaemonMetrics } from './metrics.ts';
 import { emptyTimings, type StageTimings } from './timings.ts';
-import type { CycleState, DriftAssessment, DriftAssessor, Fitter, IssuedForecast, MaturedError } from './ports.ts';
+import type { CycleState, DriftAssessment, DriftAssessor, Fitter, IssuedStep, MaturedError, ResidualEntry } from './ports.ts';
 
 export type CycleOutcome = 'ok' | 'failed' | 'stale' | 'aborted';
 export type Stage = keyof StageTimings;
@@ -44,7 +44,7 @@ export interface SeriesCycleResult {
   issuedAt?: number;
   forecast?: ForecastBatch;
   warmStarted?: boolean;
-  /** Ledger entries scored / dropped as too old to score in this cycle. */
+  /** Ledger steps scored / dropped as unscorable (actual before the readable range) in this cycle. */
   scored: number;
   expired: number;
   /** Overall score of the forecasts that matured in this cycle. */
@@ -74,7 +74,7 @@ export interface CycleOptions {
    * Where the latest forecast of another series comes from, for exogenous inputs used at target
    * time (default: the state ledger).
    */
-  latestForecastOf?: (series: string) => Promise<IssuedForecast | null>;
+  latestForecastOf?: (series: string) => Promise<ForecastBatch | null>;
 }
 
 /** A read cache for one run over many series: exogenous inputs shared by many series are read once. */
@@ -231,7 +231,7 @@ export class SeriesCycle {
       const exo: Record<string, RegularSeries> = {};
       for (const e of r.exogenous) {
         const ex = regularize(exoReadings[e.name], { ...regOpts, series: e.name, endMs: e.atTarget ? endMs + H * step : endMs });
-        if (e.atTarget && originIndex >= 0) await this.#extendWithForecast(ex, e.name, target.startMs + originIndex * step, H);
+        if (e.atTarget && originIndex >= 0) await this.#extendWithForecast(ex, e.name, target.startMs + originIndex * step);
         exo[e.name] = ex;
       }
       return { target, originIndex, exo };
@@ -240,7 +240,8 @@ export class SeriesCycle {
     const lastReadingAt = originIndex >= 0 ? target.startMs + originIndex * step : null;
     result.lastReadingAt = lastReadingAt;
 
-    const stale = lastReadingAt === null || nowMs - (lastReadingAt + step) > r.drift.staleAfterMs;
+    // Same rule as the drift layer: the newest step older than drift.staleAfter is stale.
+    const stale = lastReadingAt === null || nowMs - lastReadingAt > r.drift.staleAfterMs;
     let scoredErrors: MaturedError[] = [];
     let novelty: number | null = null;
     let baselineMase: number | null = null;
@@ -258,13 +259,14 @@ export class SeriesCycle {
       // ---- fit + predict (worker) ----
       if (signal?.aborted) throw new StageError('fit', new DaemonError('SHUTDOWN_ABORTED', 'shutdown bound reached before the fit', { series: r.name }));
       // State reads count as preparation: the fit stage is the work inside the worker.
+      const capacity = this.#o.residualCapacity ?? DEFAULT_RESIDUAL_CAPACITY;
       const warm = await timed('prepare', () => state.getModel(r.name));
-      let pool = await timed('prepare', () => state.getResiduals(r.name));
-      if (pool && pool.horizon !== H) pool = null; // horizon changed: old residuals do not line up
+      const pool = await timed('prepare', () => state.getResiduals(r.name, H, capacity));
+      const poolEmpty = pool.byLead.every((l) => l.length === 0);
       const wall0 = this.#clock.monotonicMs();
       let fr;
       try {
-        fr = await fitter.fitAndForecast({ settings: s, target, exo, originIndex, warm, holdout: pool === null }, signal);
+        fr = await fitter.fitAndForecast({ settings: s, target, exo, originIndex, warm, holdout: poolEmpty }, signal);
       } catch (err) {
         throw new StageError('fit', err);
       }
@@ -276,15 +278,24 @@ export class SeriesCycle {
       novelty = fr.forecast.novelty;
       baselineMase = baselineFromHoldout(fr.holdout, target, originIndex, s.windowSteps, s.features.seasonSteps);
 
+      // Seed rows for an empty pool: the fit's hold-out residuals (out of sample, before the origin).
+      const seed: ResidualEntry[] = [];
       const batch = await timed('predict', () => {
-        if (!pool) {
-          pool = createResidualPool(H, this.#o.residualCapacity ?? DEFAULT_RESIDUAL_CAPACITY);
-          // Seed the bands with the hold-out residuals of the fit (out of sample, before the origin).
-          for (let h = 1; h <= H; h++) {
-            const list = fr.holdout?.residualsByLead[h - 1] ?? [];
-            for (const v of list) if (Number.isFinite(v)) pool.byLead[h - 1].push(v);
-            if (pool.byLead[h - 1].length > pool.capacityPerLead) pool.byLead[h - 1].splice(0, pool.byLead[h - 1].length - pool.capacityPerLead);
-          }
+        if (poolEmpty && fr.holdout) {
+          const ho = fr.holdout;
+          ho.residualsByLead.forEach((list, i) => {
+            const lead = i + 1;
+            list.forEach((v, j) => {
+              // Validation origins are consecutive steps from firstOrigin; list j is origin firstOrigin + (nOrigins - len + j).
+              const o = ho.firstOrigin + (ho.nOrigins - list.length + j);
+              const t = target.startMs + (o + lead) * step;
+              if (Number.isFinite(v)) {
+                seed.push({ lead, t, residual: v });
+                pool.byLead[i].push(v);
+              }
+            });
+            if (pool.byLead[i].length > capacity) pool.byLead[i].splice(0, pool.byLead[i].length - capacity);
+          });
         }
         const bands = bandsForForecast(fr.forecast.values, pool, s.quantiles);
         const points: ForecastPoint[] = [];
@@ -304,14 +315,9 @@ export class SeriesCycle {
         }
         if (signal?.aborted) throw new DaemonError('SHUTDOWN_ABORTED', 'shutdown bound reached before the write', { series: r.name });
         await this.#writeWithRetry('forecast', () => store.writeForecast(batch));
-        await state.putModel(r.name, fr.fitted);
-        await state.putResiduals(r.name, pool!);
-        const bandsByKey: Record<string, number[]> = {};
-        for (const q of s.quantiles) {
-          const k = quantileKey(q);
-          bandsByKey[k] = batch.points.map((p) => p.bands[k] ?? Number.NaN);
-        }
-        await state.recordIssued({ series: r.name, issuedAt: batch.issuedAt, stepMs: step, values: batch.points.map((p) => p.value), bands: bandsByKey, novelty: fr.forecast.novelty });
+        await state.putModel(r.name, fr.fitted, nowMs);
+        if (seed.length) await state.addResiduals(r.name, seed, capacity);
+        await state.recordIssued(r.name, batch);
       });
       result.issuedAt = batch.issuedAt;
       result.forecast = batch;
@@ -326,7 +332,7 @@ export class SeriesCycle {
       await timed('drift', async () => {
         const previous = await state.getDriftState(r.name);
         const a = await assessor.assess({ series: r.name, resolved: r, nowMs, lastReadingAt, matured: scoredErrors, novelty, baselineMase, previous });
-        await state.putDriftState(r.name, a.next);
+        await state.putDriftState(r.name, a.next, nowMs);
         result.drift = a;
         if (a.transition) logger.info({ series: r.name, from: a.transition.from, to: a.transition.to, statistic: a.statistic, recentMase: a.recentMase, baselineMase: a.baselineMase, noveltyShare: a.noveltyShare }, 'drift state changed');
         this.#o.metrics?.recordDrift(r.name, a.state, a.statistic, a.noveltyShare, a.recentMase);
@@ -351,7 +357,10 @@ export class SeriesCycle {
     }
   }
 
-  /** Score every pending ledger entry whose targets all lie at or before the origin. */
+  /**
+   * Score every ledger step whose target time lies at or before the origin (its actual is known):
+   * residuals per lead go to the band pool, scores per lead and overall (lead 0) to the store.
+   */
   async #score(r: ResolvedSeries, target: RegularSeries, originIndex: number, result: SeriesCycleResult): Promise<MaturedError[]> {
     const { state, store } = this.#o;
     const s = r.settings;
@@ -359,96 +368,87 @@ export class SeriesCycle {
     const step = s.stepMs;
     const m = s.features.seasonSteps;
     const originMs = target.startMs + originIndex * step;
-    const pending = await state.pendingIssued(r.name);
-    const matured: IssuedForecast[] = [];
-    const expired: number[] = [];
-    for (const f of pending) {
-      if (f.stepMs !== step || f.values.length !== H) {
-        expired.push(f.issuedAt); // settings changed since it was issued: it no longer lines up
-        continue;
-      }
-      const lastTarget = f.issuedAt + H * step;
-      if (lastTarget > originMs) continue; // not matured yet
-      if (f.issuedAt + step < target.startMs) {
-        expired.push(f.issuedAt); // its targets lie before the readable range
-        continue;
-      }
-      matured.push(f);
-    }
+    const due = await state.matured(r.name, originMs);
     const errors: MaturedError[] = [];
-    if (matured.length > 0) {
-      const quantiles = s.quantiles;
-      const keys = quantiles.map(quantileKey);
-      let pool = (await state.getResiduals(r.name)) ?? createResidualPool(H, this.#o.residualCapacity ?? DEFAULT_RESIDUAL_CAPACITY);
-      if (pool.horizon !== H) pool = createResidualPool(H, this.#o.residualCapacity ?? DEFAULT_RESIDUAL_CAPACITY);
-      const scoredList: ScoredForecast[] = [];
-      let newestT = 0;
-      for (const f of matured) {
-        const oi = Math.round((f.issuedAt - target.startMs) / step);
-        const actual = new Float64Array(H);
-        for (let h = 0; h < H; h++) {
-          const i = oi + 1 + h;
-          // Interpolated (filled) steps are not observations: they are not scored.
-          actual[h] = i >= 0 && i < target.values.length && !(target.filled && target.filled[i]) ? target.values[i] : Number.NaN;
-        }
-        const scale = seasonalScale(target.values, Math.max(0, oi - s.windowSteps + 1), Math.max(0, oi), m).scale;
-        addForecastResiduals(pool, actual, f.values);
-        const bands = keys.every((k) => Array.isArray(f.bands[k])) ? keys.map((k) => f.bands[k]) : undefined;
-        scoredList.push(bands ? { actual, forecast: f.values, scale, bands } : { actual, forecast: f.values, scale });
-        for (let h = 0; h < H; h++) {
-          if (!Number.isFinite(actual[h])) continue;
-          const e = actual[h] - f.values[h];
-          const t = f.issuedAt + (h + 1) * step;
-          errors.push({ t, lead: h + 1, error: e, scaledError: scale > 0 ? Math.abs(e) / scale : Number.NaN });
-          newestT = Math.max(newestT, t);
-        }
+    if (due.length === 0) return errors;
+    const quantiles = s.quantiles;
+    const keys = quantiles.map(quantileKey);
+    const overall = new MetricAccumulator(quantiles);
+    const byLead = new Map<number, MetricAccumulator>();
+    const scales = new Map<number, number>();
+    const residuals: ResidualEntry[] = [];
+    const settled: IssuedStep[] = [];
+    const bandVals = new Float64Array(quantiles.length);
+    let expired = 0;
+    let newestT = 0;
+    for (const st of due) {
+      settled.push(st);
+      const i = Math.round((st.t - target.startMs) / step);
+      if (i < 0 || st.lead > H) {
+        expired++; // its actual lies before the readable range, or the horizon shrank since
+        continue;
       }
-      errors.sort((a, b) => a.t - b.t || a.lead - b.lead);
-      const summary = scoreForecasts(scoredList, H, quantiles, m);
-      result.score = summary.overall;
-      const points: ScorePoint[] = [];
-      const toPoint = (lead: number, ms: MetricSet): ScorePoint | null =>
-        ms.n > 0
-          ? {
-              series: r.output.name,
-              t: newestT,
-              lead,
-              mae: ms.mae ?? Number.NaN,
-              rmse: ms.rmse ?? Number.NaN,
-              mase: ms.mase ?? Number.NaN,
-              bias: ms.bias ?? Number.NaN,
-              coverage: ms.coverage ?? Number.NaN,
-              n: ms.n,
-              season: m,
-            }
-          : null;
-      const overall = toPoint(0, summary.overall);
-      if (overall) points.push(overall);
-      summary.byLead.forEach((ms, i) => {
-        const p = toPoint(i + 1, ms);
-        if (p) points.push(p);
-      });
-      if (points.length) await this.#writeWithRetry('scores', () => store.writeScores(points));
-      await state.putResiduals(r.name, pool);
+      // Interpolated (filled) steps are not observations: they are not scored.
+      const actual = target.filled && target.filled[i] ? Number.NaN : target.values[i];
+      let scale = scales.get(st.issuedAt);
+      if (scale === undefined) {
+        const oi = Math.round((st.issuedAt - target.startMs) / step);
+        scale = seasonalScale(target.values, Math.max(0, oi - s.windowSteps + 1), Math.max(0, oi), m).scale;
+        scales.set(st.issuedAt, scale);
+      }
+      for (let q = 0; q < keys.length; q++) bandVals[q] = st.bands[keys[q]] ?? Number.NaN;
+      overall.add(actual, st.value, scale, bandVals);
+      let acc = byLead.get(st.lead);
+      if (!acc) byLead.set(st.lead, (acc = new MetricAccumulator(quantiles)));
+      acc.add(actual, st.value, scale, bandVals);
+      if (!Number.isFinite(actual)) continue;
+      const e = actual - st.value;
+      residuals.push({ lead: st.lead, t: st.t, residual: e });
+      errors.push({ t: st.t, lead: st.lead, error: e, scaledError: scale > 0 ? Math.abs(e) / scale : Number.NaN });
+      newestT = Math.max(newestT, st.t);
     }
-    const settled = [...matured.map((f) => f.issuedAt), ...expired];
-    if (settled.length) await state.settleIssued(r.name, settled);
-    result.scored = matured.length;
-    result.expired = expired.length;
+    errors.sort((a, b) => a.t - b.t || a.lead - b.lead);
+    const toPoint = (lead: number, ms: MetricSet): ScorePoint | null =>
+      ms.n > 0
+        ? {
+            series: r.output.name,
+            t: newestT,
+            lead,
+            mae: ms.mae ?? Number.NaN,
+            rmse: ms.rmse ?? Number.NaN,
+            mase: ms.mase ?? Number.NaN,
+            bias: ms.bias ?? Number.NaN,
+            coverage: ms.coverage ?? Number.NaN,
+            n: ms.n,
+            season: m,
+          }
+        : null;
+    const points: ScorePoint[] = [];
+    const all = overall.result();
+    result.score = all;
+    const p0 = toPoint(0, all);
+    if (p0) points.push(p0);
+    for (const lead of [...byLead.keys()].sort((a, b) => a - b)) {
+      const p = toPoint(lead, byLead.get(lead)!.result());
+      if (p) points.push(p);
+    }
+    if (points.length) await this.#writeWithRetry('scores', () => store.writeScores(points));
+    if (residuals.length) await state.addResiduals(r.name, residuals, this.#o.residualCapacity ?? DEFAULT_RESIDUAL_CAPACITY);
+    await state.removeIssued(r.name, settled);
+    result.scored = settled.length - expired;
+    result.expired = expired;
     return errors;
   }
 
   /** Append the latest forecast of an exogenous input after its last reading (inputs used at target time). */
-  async #extendWithForecast(ex: RegularSeries, name: string, originMs: number, H: number): Promise<void> {
+  async #extendWithForecast(ex: RegularSeries, name: string, originMs: number): Promise<void> {
     const latest = await (this.#o.latestForecastOf ?? ((n: string) => this.#o.state.latestIssued(n)))(name);
     if (!latest || latest.stepMs !== ex.stepMs) return; // missing inputs surface as the engine's MISSING_INPUT
-    for (let h = 0; h < latest.values.length; h++) {
-      const t = latest.issuedAt + (h + 1) * latest.stepMs;
-      const i = Math.round((t - ex.startMs) / ex.stepMs);
-      if (t <= originMs || i < 0 || i >= ex.values.length) continue;
-      if (Number.isNaN(ex.values[i])) ex.values[i] = latest.values[h];
+    for (const p of latest.points) {
+      const i = Math.round((p.t - ex.startMs) / ex.stepMs);
+      if (p.t <= originMs || i < 0 || i >= ex.values.length) continue;
+      if (Number.isNaN(ex.values[i])) ex.values[i] = p.value;
     }
-    void H;
   }
 
   async #writeWithRetry(kind: 'forecast' | 'scores' | 'health', fn: () => Promise<void>): Promise<void> {

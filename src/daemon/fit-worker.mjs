@@ -1,11 +1,46 @@
 // Worker-thread entry of the daemon's fit pool (piscina). Plain .mjs so it loads without a
 // loader flag; it registers tsx itself, so the pool works under the CLI, tsx and test runners.
+// A module that fails to load fails every task with its error (fast), instead of killing the
+// worker at start-up and leaving queued tasks waiting for a worker that never comes.
 import { register } from 'tsx/esm/api';
 
 register();
-const { runFitTask } = await import('./fit-task.ts');
+let runFitTask = null;
+let loadError = null;
+try {
+  ({ runFitTask } = await import('./fit-task.ts'));
+} catch (err) {
+  loadError = err;
+}
 
-/** One fit request in, one FitResult out (structured clone both ways). */
+/**
+ * One fit request in, { ok: true, result } or { ok: false, error } out (structured clone both
+ * ways). Errors travel as plain fields, since a cloned Error loses its code, hint and location.
+ */
 export default function fit(req) {
-  return runFitTask(req);
+  try {
+    if (loadError) throw loadError;
+    return { ok: true, result: runFitTask(req) };
+  } catch (err) {
+    const e = err && typeof err === 'object' ? err : { message: String(err) };
+    let retryable = false;
+    try {
+      retryable = typeof e.canRetry === 'function' ? Boolean(e.canRetry()) : e.retryable === true;
+    } catch {
+      retryable = false;
+    }
+    return {
+      ok: false,
+      error: {
+        name: typeof e.name === 'string' ? e.name : 'Error',
+        code: typeof e.code === 'string' ? e.code : undefined,
+        message: typeof e.message === 'string' ? e.message : String(err),
+        hint: typeof e.hint === 'string' ? e.hint : undefined,
+        at: typeof e.at === 'string' ? e.at : undefined,
+        field: typeof e.field === 'string' ? e.field : undefined,
+        series: typeof e.series === 'string' ? e.series : undefined,
+        retryable,
+      },
+    };
+  }
 }

@@ -15,6 +15,42 @@ import type { FitRequest, FitResult, Fitter } from './ports.ts';
 
 const WORKER_FILE = new URL('./fit-worker.mjs', import.meta.url).href;
 
+type WorkerReply = { ok: true; result: FitResult } | { ok: false; error: WorkerErrorFields };
+
+interface WorkerErrorFields {
+  name: string;
+  code?: string;
+  message: string;
+  hint?: string;
+  at?: string;
+  field?: string;
+  series?: string;
+  retryable: boolean;
+}
+
+/** An error raised inside a fit worker, rebuilt in the main thread with its code, hint and location. */
+export class WorkerTaskError extends Error {
+  readonly code: string;
+  readonly hint?: string;
+  readonly at?: string;
+  readonly field?: string;
+  readonly series?: string;
+  readonly retryable: boolean;
+  constructor(f: WorkerErrorFields) {
+    super(f.message);
+    this.name = f.name;
+    this.code = f.code ?? 'INTERNAL';
+    if (f.hint !== undefined) this.hint = f.hint;
+    if (f.at !== undefined) this.at = f.at;
+    if (f.field !== undefined) this.field = f.field;
+    if (f.series !== undefined) this.series = f.series;
+    this.retryable = f.retryable;
+  }
+  canRetry(): boolean {
+    return this.retryable;
+  }
+}
+
 export class InlineFitter implements Fitter {
   readonly kind = 'inline' as const;
   get queued(): number {
@@ -51,6 +87,8 @@ export class PoolFitter implements Fitter {
       // Workers do not inherit --inspect or test-runner flags; they register tsx themselves.
       execArgv: [],
     });
+    // A worker that dies is replaced by piscina; its task already got the error.
+    this.#pool.on('error', () => undefined);
   }
 
   get queued(): number {
@@ -58,14 +96,16 @@ export class PoolFitter implements Fitter {
   }
 
   async fitAndForecast(req: FitRequest, signal?: AbortSignal): Promise<FitResult> {
+    let reply: WorkerReply;
     try {
-      return (await this.#pool.run(req, signal ? { signal } : undefined)) as FitResult;
+      reply = (await this.#pool.run(req, signal ? { signal } : undefined)) as WorkerReply;
     } catch (err) {
-      // Errors thrown in the worker arrive as plain Errors with their own props copied; keep the code.
+      // The worker itself failed (crash, out of memory, aborted task).
       const rec = describeError(err);
-      if (rec.code !== 'INTERNAL') throw err;
-      throw new ForecastError({ code: 'WORKER_FAILED', series: req.settings.series, message: `fit worker failed: ${rec.message}`, hint: 'run with workers 0 to see the failure in the main thread' });
+      throw new ForecastError({ code: 'WORKER_FAILED', series: req.settings.series, message: `fit worker failed: ${rec.message}`, hint: 'run with --workers 0 to see the failure in the main thread' });
     }
+    if (reply.ok) return reply.result;
+    throw new WorkerTaskError(reply.error);
   }
 
   async stop(): Promise<void> {

@@ -4,46 +4,54 @@
  * layer (src/drift); tests pass small fakes. Keeping these narrow lets a cycle be tested without
  * SQLite, worker threads or a detector.
  */
-import type { DriftState } from '../store/types.ts';
+import type { DriftState, ForecastBatch } from '../store/types.ts';
 import type { ResolvedSeries } from '../config/resolve.ts';
 import type { FittedForecaster, ForecastOutput, HoldoutResiduals } from '../forecast/engine.ts';
 import type { ForecastSettings } from '../forecast/types.ts';
 import type { RegularSeries } from '../series/types.ts';
 import type { ResidualPool } from '../evaluate/bands.ts';
 
-/** One issued forecast as kept in the ledger until it matures and is scored. */
-export interface IssuedForecast {
-  series: string;
-  /** Origin time (epoch ms): the last observed step the forecast was made from. */
+/** One issued forecast step as kept in the ledger until its actual arrives and it is scored. */
+export interface IssuedStep {
+  /** Origin time of the forecast it belongs to (epoch ms). */
   issuedAt: number;
-  stepMs: number;
-  /** Point forecasts, lead 1..H (targets at issuedAt + lead * stepMs). */
-  values: number[];
-  /** Band values per quantile key ("0.1" -> H values; NaN where a lead had no band). */
-  bands: Record<string, number[]>;
-  /** Largest Gaussian activation of the forecast input (novelty signal, in (0, 1]). */
-  novelty: number;
+  lead: number;
+  /** Target time (epoch ms). */
+  t: number;
+  value: number;
+  /** Band values keyed by quantile ("0.1" -> value). */
+  bands: Record<string, number>;
 }
 
-/** radcast's local state as the cycle uses it. */
+/** A residual (actual - forecast) of one lead, keyed by its target time. */
+export interface ResidualEntry {
+  lead: number;
+  t: number;
+  residual: number;
+}
+
+/**
+ * radcast's local state as the cycle uses it (src/store/state.ts through StateAdapter; tests use
+ * an in-memory fake). Series are keyed by their configured name.
+ */
 export interface CycleState {
   getModel(series: string): Promise<FittedForecaster | null>;
-  putModel(series: string, fitted: FittedForecaster): Promise<void>;
-  getResiduals(series: string): Promise<ResidualPool | null>;
-  putResiduals(series: string, pool: ResidualPool): Promise<void>;
-  /** Upsert by (series, issuedAt): re-issuing from the same origin replaces the entry. */
-  recordIssued(f: IssuedForecast): Promise<void>;
-  /** Entries not yet scored, oldest first. */
-  pendingIssued(series: string): Promise<IssuedForecast[]>;
-  /** Remove entries from the pending list (scored, or expired beyond the readable range). */
-  settleIssued(series: string, issuedAts: number[]): Promise<void>;
-  /** The newest issued forecast (scored or not), for the page and for at-target exogenous inputs. */
-  latestIssued(series: string): Promise<IssuedForecast | null>;
+  putModel(series: string, fitted: FittedForecaster, atMs: number): Promise<void>;
+  /** The newest `perLead` residuals of each lead 1..horizon as a pool (empty lists when none). */
+  getResiduals(series: string, horizon: number, perLead: number): Promise<ResidualPool>;
+  /** Add residuals; only the newest `keepPerLead` per lead are kept. */
+  addResiduals(series: string, rows: ResidualEntry[], keepPerLead: number): Promise<void>;
+  /** Ledger: record every step of the batch (idempotent per issue time + lead); also the series' latest forecast. */
+  recordIssued(series: string, batch: ForecastBatch): Promise<void>;
+  /** Ledger steps with target time <= upToMs, oldest target first. */
+  matured(series: string, upToMs: number): Promise<IssuedStep[]>;
+  /** Remove scored (or unscorable) steps. */
+  removeIssued(series: string, steps: Array<Pick<IssuedStep, 'issuedAt' | 'lead'>>): Promise<void>;
+  /** The newest forecast issued for the series, for the page and for at-target exogenous inputs. */
+  latestIssued(series: string): Promise<ForecastBatch | null>;
   /** Opaque persisted state of the drift detector. */
   getDriftState(series: string): Promise<unknown | null>;
-  putDriftState(series: string, state: unknown): Promise<void>;
-  flush?(): Promise<void>;
-  close?(): Promise<void>;
+  putDriftState(series: string, state: unknown, atMs: number): Promise<void>;
 }
 
 export interface FitRequest {

@@ -61,7 +61,7 @@ describe('series cycle', () => {
     expect(r.timings.drift).toBe(0); // no assessor wired: stage skipped
     expect(store.health).toHaveLength(0);
     expect(state.models.get('oskaveld-north')?.series).toBe('oskaveld-north');
-    expect(await state.pendingIssued('oskaveld-north')).toHaveLength(1);
+    expect(state.pending('oskaveld-north')).toHaveLength(24);
     expect(r.warmStarted).toBe(false);
   });
 
@@ -72,20 +72,22 @@ describe('series cycle', () => {
     store.readings.set('brennick-yard', all.filter((x) => x.t < END));
     const first = await cycle.run(s, { nowMs: NOW });
     expect(first.outcome).toBe('ok');
-    const issued = (await state.pendingIssued('brennick-yard'))[0];
-    const poolBefore = state.residuals.get('brennick-yard')!.byLead.map((l) => l.length);
+    const issued = (await state.latestIssued('brennick-yard'))!;
+    const poolBefore = Array.from({ length: 24 }, (_, h) => state.residualsOf('brennick-yard', h + 1).length);
+    expect(poolBefore[0]).toBeGreaterThan(0); // seeded from the hold-out residuals
 
     // One day later the 24 targets have actuals.
     store.readings.set('brennick-yard', all.filter((x) => x.t < END + days(1)));
     const second = await cycle.run(s, { nowMs: NOW + days(1) });
     expect(second.outcome).toBe('ok');
     expect(second.warmStarted).toBe(true);
-    expect(second.scored).toBe(1);
-    expect(await state.pendingIssued('brennick-yard')).toHaveLength(1); // the new one only
+    expect(second.scored).toBe(24);
+    expect(state.pending('brennick-yard').map((p) => p.issuedAt)).toEqual(new Array(24).fill(second.issuedAt)); // the new one only
 
-    // Scores recomputed by hand from the ledger entry and the actuals.
-    const actual = issued.values.map((_, h) => all.find((x) => x.t === issued.issuedAt + (h + 1) * HOUR)!.v);
-    const errs = actual.map((a, h) => a - issued.values[h]);
+    // Scores recomputed by hand from the issued forecast and the actuals.
+    const values = issued.points.map((p) => p.value);
+    const actual = values.map((_, h) => all.find((x) => x.t === issued.issuedAt + (h + 1) * HOUR)!.v);
+    const errs = actual.map((a, h) => a - values[h]);
     const mae = errs.reduce((a, e) => a + Math.abs(e), 0) / 24;
     const overall = store.scores.find((p) => p.lead === 0)!;
     expect(overall.n).toBe(24);
@@ -96,12 +98,12 @@ describe('series cycle', () => {
     const lead5 = store.scores.find((p) => p.lead === 5)!;
     expect(lead5.mae).toBeCloseTo(Math.abs(errs[4]), 9);
     expect(store.scores.filter((p) => p.lead > 0)).toHaveLength(24);
-    // Residuals per lead grew by one matured forecast.
-    const poolAfter = state.residuals.get('brennick-yard')!;
-    poolAfter.byLead.forEach((l, h) => {
-      expect(l.length).toBe(Math.min(poolAfter.capacityPerLead, poolBefore[h] + 1));
+    // Residuals per lead grew by one matured forecast (the newest entry of each lead).
+    for (let h = 0; h < 24; h++) {
+      const l = state.residualsOf('brennick-yard', h + 1);
+      expect(l.length).toBe(Math.min(120, poolBefore[h] + 1));
       expect(l[l.length - 1]).toBeCloseTo(errs[h], 9);
-    });
+    }
   });
 
   it('never writes a NaN forecast: a non-finite value is rejected with its code and counted', async () => {

@@ -1,9 +1,9 @@
 /** In-memory stand-ins for the store, the state store and the drift layer, for cycle tests. */
 import type { ForecastBatch, HealthPoint, ScorePoint, SeriesStore, SourceSelector } from '../../../src/store/types.ts';
 import type { Reading } from '../../../src/series/types.ts';
-import type { CycleState, IssuedForecast } from '../../../src/daemon/ports.ts';
+import type { CycleState, IssuedStep, ResidualEntry } from '../../../src/daemon/ports.ts';
 import type { FittedForecaster } from '../../../src/forecast/engine.ts';
-import type { ResidualPool } from '../../../src/evaluate/bands.ts';
+import { createResidualPool, type ResidualPool } from '../../../src/evaluate/bands.ts';
 import { parseConfigObject } from '../../../src/config/load.ts';
 import type { ResolvedSeries } from '../../../src/config/resolve.ts';
 import { mulberry32 } from '../../../src/model/index.ts';
@@ -57,8 +57,9 @@ export class MemoryStore implements SeriesStore {
 
 export class MemoryState implements CycleState {
   models = new Map<string, FittedForecaster>();
-  residuals = new Map<string, ResidualPool>();
-  issued = new Map<string, Map<number, { f: IssuedForecast; settled: boolean }>>();
+  residuals = new Map<string, ResidualEntry[]>();
+  ledger = new Map<string, Map<string, IssuedStep>>();
+  latest = new Map<string, ForecastBatch>();
   drift = new Map<string, unknown>();
 
   async getModel(series: string) {
@@ -67,29 +68,43 @@ export class MemoryState implements CycleState {
   async putModel(series: string, fitted: FittedForecaster) {
     this.models.set(series, structuredClone(fitted));
   }
-  async getResiduals(series: string) {
-    return structuredClone(this.residuals.get(series) ?? null);
+  async getResiduals(series: string, horizon: number, perLead: number): Promise<ResidualPool> {
+    const pool = createResidualPool(horizon, perLead);
+    const rows = [...(this.residuals.get(series) ?? [])].sort((a, b) => a.t - b.t);
+    for (const r of rows) if (r.lead <= horizon) pool.byLead[r.lead - 1].push(r.residual);
+    pool.byLead = pool.byLead.map((l) => l.slice(-perLead));
+    return pool;
   }
-  async putResiduals(series: string, pool: ResidualPool) {
-    this.residuals.set(series, structuredClone(pool));
+  async addResiduals(series: string, rows: ResidualEntry[], keepPerLead: number) {
+    const byKey = new Map((this.residuals.get(series) ?? []).map((r) => [`${r.lead}|${r.t}`, r]));
+    for (const r of rows) byKey.set(`${r.lead}|${r.t}`, { ...r });
+    const kept: ResidualEntry[] = [];
+    const leads = new Set([...byKey.values()].map((r) => r.lead));
+    for (const lead of leads) kept.push(...[...byKey.values()].filter((r) => r.lead === lead).sort((a, b) => a.t - b.t).slice(-keepPerLead));
+    this.residuals.set(series, kept);
   }
-  async recordIssued(f: IssuedForecast) {
-    const m = this.issued.get(f.series) ?? new Map();
-    m.set(f.issuedAt, { f: structuredClone(f), settled: false });
-    this.issued.set(f.series, m);
+  /** Residual rows of one lead, oldest first (for assertions). */
+  residualsOf(series: string, lead: number): number[] {
+    return (this.residuals.get(series) ?? []).filter((r) => r.lead === lead).sort((a, b) => a.t - b.t).map((r) => r.residual);
   }
-  async pendingIssued(series: string) {
-    return [...(this.issued.get(series)?.values() ?? [])].filter((e) => !e.settled).map((e) => structuredClone(e.f)).sort((a, b) => a.issuedAt - b.issuedAt);
+  async recordIssued(series: string, batch: ForecastBatch) {
+    const m = this.ledger.get(series) ?? new Map<string, IssuedStep>();
+    for (const p of batch.points) m.set(`${batch.issuedAt}|${p.lead}`, { issuedAt: batch.issuedAt, lead: p.lead, t: p.t, value: p.value, bands: { ...p.bands } });
+    this.ledger.set(series, m);
+    this.latest.set(series, structuredClone(batch));
   }
-  async settleIssued(series: string, issuedAts: number[]) {
-    for (const t of issuedAts) {
-      const e = this.issued.get(series)?.get(t);
-      if (e) e.settled = true;
-    }
+  async matured(series: string, upToMs: number) {
+    return [...(this.ledger.get(series)?.values() ?? [])].filter((e) => e.t <= upToMs).sort((a, b) => a.t - b.t || a.lead - b.lead).map((e) => structuredClone(e));
+  }
+  async removeIssued(series: string, steps: Array<Pick<IssuedStep, 'issuedAt' | 'lead'>>) {
+    for (const s of steps) this.ledger.get(series)?.delete(`${s.issuedAt}|${s.lead}`);
+  }
+  /** Ledger steps still waiting (for assertions). */
+  pending(series: string): IssuedStep[] {
+    return [...(this.ledger.get(series)?.values() ?? [])];
   }
   async latestIssued(series: string) {
-    const all = [...(this.issued.get(series)?.values() ?? [])].map((e) => e.f).sort((a, b) => b.issuedAt - a.issuedAt);
-    return all[0] ? structuredClone(all[0]) : null;
+    return structuredClone(this.latest.get(series) ?? null);
   }
   async getDriftState(series: string) {
     return this.drift.get(series) ?? null;

@@ -1,0 +1,121 @@
+/**
+ * The parts one process needs to run cycles, built from a loaded config: the series store, the
+ * local state store, the fitter (worker pool or inline), the drift wiring, the metrics and the
+ * cycle itself. Shared by `radcast run` (Daemon), `radcast once` and the demo. Everything that
+ * touches the outside is injectable (stores, clock, logger) so tests can swap it.
+ */
+import type { Logger } from 'pino';
+import type { LoadedConfig } from '../config/load.ts';
+import type { ResolvedSeries } from '../config/resolve.ts';
+import { loadSecrets, type Secrets } from '../config/secrets.ts';
+import { formatIssue } from '../config/errors.ts';
+import { parseDurationMs } from '../config/duration.ts';
+import { openSeriesStore, openStateStore } from '../store/index.ts';
+import type { StateStore } from '../store/state.ts';
+import type { SeriesStore } from '../store/types.ts';
+import { systemClock, type Clock } from './clock.ts';
+import { SeriesCycle } from './cycle.ts';
+import { CycleDriftAssessor } from './drift-adapter.ts';
+import { DaemonError } from './errors.ts';
+import { DaemonMetrics } from './metrics.ts';
+import { InlineFitter, PoolFitter } from './pool.ts';
+import type { Fitter } from './ports.ts';
+import { StateAdapter } from './state-adapter.ts';
+import { ALL_SERIES, filterOwned, shardLabel, type ShardSpec } from './shard.ts';
+import { flushAndClose } from './close.ts';
+
+export interface RuntimeDeps {
+  logger: Logger;
+  clock?: Clock;
+  /** Worker threads for fits; 0 = inline. Default: config daemon.concurrency. */
+  workers?: number;
+  /** Series store to use instead of the configured one (tests). */
+  store?: SeriesStore;
+  /** State store to use instead of config state.path (tests). */
+  stateStore?: StateStore;
+  metrics?: DaemonMetrics;
+  shard?: ShardSpec;
+  env?: Record<string, string | undefined>;
+}
+
+export interface Runtime {
+  loaded: LoadedConfig;
+  secrets: Secrets;
+  store: SeriesStore;
+  stateStore: StateStore;
+  state: StateAdapter;
+  fitter: Fitter;
+  metrics: DaemonMetrics;
+  cycle: SeriesCycle;
+  clock: Clock;
+  logger: Logger;
+  shard: ShardSpec;
+  /** The series this instance owns (its shard of the config). */
+  owned: ResolvedSeries[];
+  /** Flush and close everything (idempotent). */
+  close(): Promise<void>;
+}
+
+export function msOf(duration: string, fallbackMs: number): number {
+  const r = parseDurationMs(duration);
+  return r.ok ? r.value : fallbackMs;
+}
+
+/** Open stores, pool and cycle for a loaded config. Throws a coded error when a secret or store is unusable. */
+export async function openRuntime(loaded: LoadedConfig, deps: RuntimeDeps): Promise<Runtime> {
+  const { logger } = deps;
+  const clock = deps.clock ?? systemClock;
+  const { secrets, issues } = loadSecrets(loaded.config, deps.env ? { env: deps.env } : {});
+  if (issues.length) {
+    for (const i of issues) logger.error({ code: i.code, path: i.path, series: i.series }, formatIssue(i));
+    throw new DaemonError('SECRET_MISSING', `${issues.length} secret(s) could not be read`, { hint: issues[0].hint });
+  }
+  const metrics = deps.metrics ?? new DaemonMetrics();
+  const store =
+    deps.store ??
+    (await openSeriesStore(loaded.config, {
+      secrets,
+      logger: logger.child({ component: 'store' }),
+      now: () => clock.now(),
+    }));
+  let stateStore: StateStore;
+  try {
+    stateStore = deps.stateStore ?? openStateStore(loaded.config);
+  } catch (err) {
+    if (!deps.store) await store.close().catch(() => undefined);
+    throw err;
+  }
+  const state = new StateAdapter(stateStore, logger);
+  const workers = deps.workers ?? loaded.config.daemon.concurrency;
+  const fitter: Fitter = workers > 0 ? new PoolFitter({ threads: workers }) : new InlineFitter();
+  const drift = new CycleDriftAssessor({
+    baselines: state,
+    logger,
+    onNotice: (notice, r) => {
+      // Kept in the outbox until delivered (the webhook sender reads it); only when a webhook is set.
+      if (r.drift.webhook && secrets.webhookUrl(r.name)) stateStore.enqueue(r.name, 'drift', notice, clock.now());
+    },
+  });
+  const cycle = new SeriesCycle({ store, state, fitter, logger, clock, metrics, drift });
+  const shard = deps.shard ?? ALL_SERIES;
+  const owned = filterOwned(shard, loaded.series, (s) => s.name);
+  metrics.seriesConfigured.set(owned.length);
+  if (shard.count > 1) logger.info({ shard: shardLabel(shard), owned: owned.length, configured: loaded.series.length }, 'running one shard of the series');
+  let closed: Promise<void> | null = null;
+  const rt: Runtime = {
+    loaded,
+    secrets,
+    store,
+    stateStore,
+    state,
+    fitter,
+    metrics,
+    cycle,
+    clock,
+    logger,
+    shard,
+    owned,
+    close: () => (closed ??= flushAndClose({ fitter, store, stateStore, logger })),
+  };
+  return rt;
+}
