@@ -206,21 +206,22 @@ export class StateStore {
   }
 
   // ---- models (warm start) ----
-  saveModel(series: string, model: RbfModel, fittedAt: number): void {
+  /** Any JSON-able model (the daemon stores its whole fitted forecaster). */
+  saveModel(series: string, model: RbfModel | object, fittedAt: number): void {
     const json = JSON.stringify(model);
     this.#tx(() => this.#s.putModel.run(series, json, fittedAt));
   }
   /** Many models in one commit. */
-  saveModels(rows: { series: string; model: RbfModel; fittedAt: number }[]): void {
+  saveModels(rows: { series: string; model: RbfModel | object; fittedAt: number }[]): void {
     const encoded = rows.map((r) => [r.series, JSON.stringify(r.model), r.fittedAt] as const);
     this.#tx(() => {
       for (const r of encoded) this.#s.putModel.run(...r);
     });
   }
-  loadModel(series: string): { model: RbfModel; fittedAt: number } | null {
+  loadModel<M = RbfModel>(series: string): { model: M; fittedAt: number } | null {
     this.#open();
     const r = this.#s.getModel.get(series);
-    return r ? { model: JSON.parse(r.model) as RbfModel, fittedAt: r.fitted_at } : null;
+    return r ? { model: JSON.parse(r.model) as M, fittedAt: r.fitted_at } : null;
   }
   deleteModel(series: string): void {
     this.#tx(() => this.#s.delModel.run(series));
@@ -274,7 +275,8 @@ export class StateStore {
         this.#s.putResidual.run(series, r.lead, r.t, r.residual);
       }
       if (keepPerLead !== undefined && keepPerLead > 0) {
-        for (const { lead } of this.#s.residualLeads.all(series)) this.#s.trimResiduals.run({ series, lead, keep: keepPerLead });
+        // Only leads that just grew can exceed the bound.
+        for (const lead of new Set(rows.map((r) => r.lead))) this.#s.trimResiduals.run({ series, lead, keep: keepPerLead });
       }
     });
   }
