@@ -1,7 +1,31 @@
 /**
  * Squared Euclidean distances of every sample to every centre, the hot loop of k-means.
  * Form: |x - c|^2 = |x|^2 + |c|^2 - 2 x.c, clipped at 0 (cancellation can give tiny negatives).
+ * Runs the WebAssembly SIMD kernel when the runtime has it, else the scalar loops below.
  */
+import { loadSimdKernels, type SimdKernels } from './wasm/kernels.ts';
+
+let simd: SimdKernels | null | undefined;
+let wanted: 'auto' | 'js' = 'auto';
+
+/** The SIMD kernels, or null when switched off or unavailable. */
+export function simdKernels(): SimdKernels | null {
+  if (wanted === 'js') return null;
+  if (simd === undefined) simd = loadSimdKernels();
+  return simd;
+}
+
+/** Chooses the kernels: 'auto' (SIMD when available) or 'js' (scalar loops; for comparisons). */
+export function useKernels(kind: 'auto' | 'js'): void {
+  wanted = kind;
+}
+
+/** Squared distances into out (n x K) with the best available kernel. */
+export function dist2Into(x: Float64Array, x2: Float64Array, nRows: number, nFeatures: number, c: Float64Array, c2: Float64Array, nCentres: number, out: Float64Array): void {
+  const k = simdKernels();
+  if (k) k.dist2(x, x2, nRows, c, c2, nCentres, nFeatures, out);
+  else dist2Scalar(x, x2, nRows, nFeatures, c, c2, nCentres, out);
+}
 
 /** Row norms |x_n|^2 of a row-major nRows x nCols matrix. */
 export function rowNorms2(data: Float64Array, nRows: number, nCols: number, out: Float64Array = new Float64Array(nRows)): Float64Array {
@@ -88,6 +112,22 @@ export function dist2All(
   x2 = rowNorms2(x, nRows, nFeatures),
 ): Float64Array {
   const c2 = rowNorms2(c, nCentres, nFeatures);
-  dist2Scalar(x, x2, nRows, nFeatures, c, c2, nCentres, out);
+  dist2Into(x, x2, nRows, nFeatures, c, c2, nCentres, out);
   return out;
+}
+
+/** A distance kernel: out = squared distances of nRows rows to nCentres centres. */
+export type DistanceKernel = (x: Float64Array, nRows: number, nFeatures: number, c: Float64Array, nCentres: number, out?: Float64Array) => Float64Array;
+
+/** The kernels this process can use, and which one k-means uses (for benches and reports). */
+export function distanceKernels(): { active: string; all: [string, DistanceKernel][] } {
+  const all: [string, DistanceKernel][] = [
+    ['js', (x, n, d, c, k, out = new Float64Array(n * k)) => {
+      dist2Scalar(x, rowNorms2(x, n, d), n, d, c, rowNorms2(c, k, d), k, out);
+      return out;
+    }],
+  ];
+  const s = simdKernels();
+  if (s) all.push(['wasm', (x, n, d, c, k, out = new Float64Array(n * k)) => s.dist2(x, rowNorms2(x, n, d), n, c, rowNorms2(c, k, d), k, d, out)]);
+  return { active: s ? 'wasm-simd' : 'js-scalar', all };
 }

@@ -7,13 +7,12 @@ import type { Dense, KMeansOptions, KMeansResult } from './types.ts';
 import { ModelError } from './errors.ts';
 import { checkDense, checkInt, checkNumber } from './check.ts';
 import { mulberry32, randomIndex, type Random } from './random.ts';
-import { dist2All, dist2Scalar, rowNorms2 } from './distance.ts';
+import { dist2All, dist2Scalar, rowNorms2, simdKernels } from './distance.ts';
 
 /** Result of one Lloyd run (internal). */
 interface LloydRun {
   centres: Float64Array;
   labels: Int32Array;
-  dist2: Float64Array;
   inertia: number;
   passes: number;
   inertiaByPass: number[];
@@ -54,23 +53,29 @@ export function kmeans(x: Dense, opts: KMeansOptions): KMeansResult {
   // Shift tolerance is relative to the data's spread: tol * mean feature variance.
   const tolAbs = tol * meanVariance(work, nWork, nFeatures);
 
+  const pass = distancePass(work, x2, nWork, nFeatures);
   let best: LloydRun | null = null;
   if (opts.initialCentres !== undefined) {
-    best = lloyd(work, x2, nWork, nFeatures, Float64Array.from(opts.initialCentres.data), nCentres, maxPasses, tolAbs);
+    best = lloyd(work, x2, nWork, nFeatures, Float64Array.from(opts.initialCentres.data), nCentres, maxPasses, tolAbs, pass);
   } else {
     for (let r = 0; r < restarts; r++) {
-      const c0 = seedPlusPlus(work, x2, nWork, nFeatures, nCentres, rnd);
-      const run = lloyd(work, x2, nWork, nFeatures, c0, nCentres, maxPasses, tolAbs);
+      const c0 = seedPlusPlus(work, nWork, nFeatures, nCentres, rnd, pass);
+      const run = lloyd(work, x2, nWork, nFeatures, c0, nCentres, maxPasses, tolAbs, pass);
       if (best === null || run.inertia < best.inertia) best = run;
     }
   }
   if (best === null) throw new Error('unreachable: no k-means run');
 
-  let { labels, dist2, inertia } = best;
+  // Distances of every row to the winning centres (the fit builds its Gaussians from them).
+  let { labels, inertia } = best;
+  const c2 = rowNorms2(best.centres, nCentres, nFeatures);
+  let dist2: Float64Array;
   if (sub) {
     dist2 = dist2All(x.data, nSamples, nFeatures, best.centres, nCentres);
     labels = new Int32Array(nSamples);
-    inertia = assign(dist2, nSamples, nCentres, labels, null);
+    inertia = argminRows(dist2, nSamples, nCentres, labels, new Float64Array(nSamples));
+  } else {
+    dist2 = pass.all(best.centres, c2, nCentres, new Float64Array(nSamples * nCentres));
   }
   return {
     centres: { data: best.centres, rows: nCentres, cols: nFeatures },
@@ -111,10 +116,63 @@ function meanVariance(x: Float64Array, n: number, d: number): number {
   return total / d;
 }
 
+/** Distance passes over one data set: the SIMD kernels with the rows kept resident, or plain loops. */
+interface DistancePass {
+  /** Nearest centre of every row (labels, mind); returns the summed minimum. dist2 is filled on the scalar path only. */
+  assign(c: Float64Array, c2: Float64Array, K: number, labels: Int32Array, mind: Float64Array, dist2: Float64Array | null): number;
+  /** Full squared-distance matrix (n x K). */
+  all(c: Float64Array, c2: Float64Array, K: number, out: Float64Array): Float64Array;
+}
+
+function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): DistancePass {
+  const sk = simdKernels();
+  if (sk) {
+    const res = sk.resident(x, x2, n, d);
+    return {
+      assign: (c, c2, K, labels, mind) => res.assign(c, c2, K, labels, mind),
+      all: (c, c2, K, out) => res.dist2(c, c2, K, out),
+    };
+  }
+  return {
+    assign(c, c2, K, labels, mind, dist2) {
+      const dd = dist2 ?? new Float64Array(n * K);
+      dist2Scalar(x, x2, n, d, c, c2, K, dd);
+      return argminRows(dd, n, K, labels, mind);
+    },
+    all(c, c2, K, out) {
+      dist2Scalar(x, x2, n, d, c, c2, K, out);
+      return out;
+    },
+  };
+}
+
+/** labels[i] = argmin_k dist2[i,k] (first on ties), mind[i] its value; returns the summed minimum. */
+function argminRows(dist2: Float64Array, n: number, K: number, labels: Int32Array, mind: Float64Array): number {
+  let inertia = 0;
+  for (let i = 0; i < n; i++) {
+    const o = i * K;
+    let bk = 0;
+    let bv = dist2[o];
+    for (let k = 1; k < K; k++) {
+      const v = dist2[o + k];
+      if (v < bv) {
+        bv = v;
+        bk = k;
+      }
+    }
+    labels[i] = bk;
+    mind[i] = bv;
+    inertia += bv;
+  }
+  return inertia;
+}
+
 /** k-means++ seeding: first centre uniform, then each next sample with probability ∝ D(x)^2. */
-function seedPlusPlus(x: Float64Array, _x2: Float64Array, n: number, d: number, K: number, rnd: Random): Float64Array {
+function seedPlusPlus(x: Float64Array, n: number, d: number, K: number, rnd: Random, pass: DistancePass): Float64Array {
   const c = new Float64Array(K * d);
   const minD2 = new Float64Array(n);
+  const dk = new Float64Array(n);
+  const c2 = new Float64Array(1);
   let pick = randomIndex(rnd, n);
   for (let k = 0; k < K; k++) {
     if (k > 0) {
@@ -136,73 +194,47 @@ function seedPlusPlus(x: Float64Array, _x2: Float64Array, n: number, d: number, 
         pick = randomIndex(rnd, n); // every sample already sits on a centre
       }
     }
-    const co = k * d;
-    const xo = pick * d;
-    for (let j = 0; j < d; j++) c[co + j] = x[xo + j];
-    // Direct difference form here: exact zero for the picked sample, no cancellation.
-    for (let i = 0; i < n; i++) {
-      let s = 0;
-      const o = i * d;
-      for (let j = 0; j < d; j++) {
-        const e = x[o + j] - c[co + j];
-        s += e * e;
-      }
-      if (k === 0 || s < minD2[i]) minD2[i] = s;
-    }
+    const centre = x.subarray(pick * d, (pick + 1) * d);
+    c.set(centre, k * d);
+    // Same summation order as the row norms, so the picked sample's own distance is exactly 0.
+    rowNorms2(centre, 1, d, c2);
+    pass.all(centre, c2, 1, dk);
+    if (k === 0) minD2.set(dk);
+    else for (let i = 0; i < n; i++) if (dk[i] < minD2[i]) minD2[i] = dk[i];
   }
   return c;
-}
-
-/** labels[n] = argmin_k dist2[n,k] (first on ties); returns the summed minimum (the inertia). */
-function assign(dist2: Float64Array, n: number, K: number, labels: Int32Array, changed: { count: number } | null): number {
-  let inertia = 0;
-  let count = 0;
-  for (let i = 0; i < n; i++) {
-    const o = i * K;
-    let bk = 0;
-    let bv = dist2[o];
-    for (let k = 1; k < K; k++) {
-      const v = dist2[o + k];
-      if (v < bv) {
-        bv = v;
-        bk = k;
-      }
-    }
-    if (labels[i] !== bk) count++;
-    labels[i] = bk;
-    inertia += bv;
-  }
-  if (changed) changed.count = count;
-  return inertia;
 }
 
 /**
  * Lloyd's algorithm from the given centres: assign, repair empty clusters, move centres to the
  * means; stop when no label changes, the squared centre shift is <= tolAbs, or after maxPasses.
- * Ends with an assignment to the final centres so labels, dist2 and inertia agree with them.
+ * Ends with an assignment to the final centres so labels and inertia agree with them.
  */
-export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, centres: Float64Array, K: number, maxPasses: number, tolAbs: number): LloydRun {
-  const dist2 = new Float64Array(n * K);
+export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, centres: Float64Array, K: number, maxPasses: number, tolAbs: number, pass = distancePass(x, x2, n, d)): LloydRun {
+  const scalarDist = simdKernels() ? null : new Float64Array(n * K);
   const labels = new Int32Array(n).fill(-1);
+  const next = new Int32Array(n);
+  const mind = new Float64Array(n);
   const counts = new Int32Array(K);
   const sums = new Float64Array(K * d);
   const c2 = new Float64Array(K);
-  const changed = { count: 0 };
   const inertiaByPass: number[] = [];
   let passes = 0;
   let inertia = 0;
   let settled = false;
   while (passes < maxPasses) {
     rowNorms2(centres, K, d, c2);
-    dist2Scalar(x, x2, n, d, centres, c2, K, dist2);
-    inertia = assign(dist2, n, K, labels, changed);
+    inertia = pass.assign(centres, c2, K, next, mind, scalarDist);
     passes++;
     inertiaByPass.push(inertia);
-    if (passes > 1 && changed.count === 0) {
+    let changed = 0;
+    for (let i = 0; i < n; i++) if (next[i] !== labels[i]) changed++;
+    labels.set(next);
+    if (passes > 1 && changed === 0) {
       settled = true;
       break;
     }
-    inertia -= repairEmpty(x, n, d, dist2, K, labels, centres);
+    inertia -= repairEmpty(x, n, d, mind, K, labels, centres);
     // Centre update: c_k = mean of its members.
     counts.fill(0);
     sums.fill(0);
@@ -229,19 +261,18 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
   }
   if (!settled) {
     rowNorms2(centres, K, d, c2);
-    dist2Scalar(x, x2, n, d, centres, c2, K, dist2);
-    inertia = assign(dist2, n, K, labels, null);
+    inertia = pass.assign(centres, c2, K, labels, mind, scalarDist);
     passes++;
     inertiaByPass.push(inertia);
   }
-  return { centres, labels, dist2, inertia, passes, inertiaByPass };
+  return { centres, labels, inertia, passes, inertiaByPass };
 }
 
 /**
  * Empty clusters take the sample farthest from its own centre (which then forms a singleton);
  * returns the decrease of the objective so the caller's inertia stays exact.
  */
-function repairEmpty(x: Float64Array, n: number, d: number, dist2: Float64Array, K: number, labels: Int32Array, centres: Float64Array): number {
+function repairEmpty(x: Float64Array, n: number, d: number, mind: Float64Array, K: number, labels: Int32Array, centres: Float64Array): number {
   const counts = new Int32Array(K);
   for (let i = 0; i < n; i++) counts[labels[i]]++;
   let gain = 0;
@@ -251,7 +282,7 @@ function repairEmpty(x: Float64Array, n: number, d: number, dist2: Float64Array,
     let farV = -1;
     for (let i = 0; i < n; i++) {
       if (counts[labels[i]] <= 1) continue; // never empty another cluster
-      const v = dist2[i * K + labels[i]];
+      const v = mind[i];
       if (v > farV) {
         farV = v;
         far = i;
@@ -262,7 +293,7 @@ function repairEmpty(x: Float64Array, n: number, d: number, dist2: Float64Array,
     labels[far] = k;
     counts[k] = 1;
     gain += farV;
-    dist2[far * K + k] = 0;
+    mind[far] = 0;
     for (let j = 0; j < d; j++) centres[k * d + j] = x[far * d + j];
   }
   return gain;

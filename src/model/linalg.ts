@@ -3,6 +3,7 @@
  * equilibration, ridge least squares for many right-hand sides with iterative refinement, and a
  * Householder QR least-squares solver used as the accuracy yardstick.
  */
+import { crossRows, gramCross, residualRows } from './blas.ts';
 
 /** A Cholesky factor of D A D + lambda D^2 (D = diag(scale)), lower triangle row-major. */
 export interface CholeskyFactor {
@@ -79,54 +80,6 @@ export function choleskySolve(f: CholeskyFactor, b: Float64Array, h: number, out
   return out;
 }
 
-/** Gram matrix G = A^T A over rows [r0, r1) of a row-major n x p matrix (full symmetric result). */
-export function gram(a: Float64Array, p: number, r0: number, r1: number, out: Float64Array = new Float64Array(p * p)): Float64Array {
-  out.fill(0);
-  for (let n = r0; n < r1; n++) {
-    const o = n * p;
-    for (let i = 0; i < p; i++) {
-      const v = a[o + i];
-      if (v === 0) continue;
-      const gi = i * p;
-      for (let j = i; j < p; j++) out[gi + j] += v * a[o + j];
-    }
-  }
-  for (let i = 0; i < p; i++) for (let j = i + 1; j < p; j++) out[j * p + i] = out[i * p + j];
-  return out;
-}
-
-/** C = A^T B over rows [r0, r1): A is n x p, B is n x h (row-major); C is p x h. */
-export function crossProduct(a: Float64Array, p: number, b: Float64Array, h: number, r0: number, r1: number, out: Float64Array = new Float64Array(p * h)): Float64Array {
-  out.fill(0);
-  for (let n = r0; n < r1; n++) {
-    const ao = n * p;
-    const bo = n * h;
-    for (let i = 0; i < p; i++) {
-      const v = a[ao + i];
-      if (v === 0) continue;
-      const co = i * h;
-      for (let c = 0; c < h; c++) out[co + c] += v * b[bo + c];
-    }
-  }
-  return out;
-}
-
-/** R = Y - A W over rows [r0, r1) (residual rows indexed from 0). */
-export function residual(a: Float64Array, p: number, w: Float64Array, y: Float64Array, h: number, r0: number, r1: number, out: Float64Array = new Float64Array((r1 - r0) * h)): Float64Array {
-  for (let n = r0; n < r1; n++) {
-    const ao = n * p;
-    const ro = (n - r0) * h;
-    for (let c = 0; c < h; c++) out[ro + c] = y[n * h + c];
-    for (let i = 0; i < p; i++) {
-      const v = a[ao + i];
-      if (v === 0) continue;
-      const wo = i * h;
-      for (let c = 0; c < h; c++) out[ro + c] -= v * w[wo + c];
-    }
-  }
-  return out;
-}
-
 export interface RidgeSolveResult {
   /** p x h weights. */
   w: Float64Array;
@@ -154,9 +107,9 @@ export function ridgeSolve(
   r1: number,
   lambda: number | Float64Array,
   refineSteps: number,
-  g = gram(a, p, r0, r1),
-  b = crossProduct(a, p, y, h, r0, r1),
+  gb?: { g: Float64Array; b: Float64Array },
 ): RidgeSolveResult | null {
+  const { g, b } = gb ?? gramCross(a, p, y, h, r0, r1);
   const asked = typeof lambda === 'number' ? new Float64Array(p).fill(lambda) : lambda;
   let lam = asked;
   let raised = false;
@@ -174,22 +127,12 @@ export function ridgeSolve(
   }
   const w = choleskySolve(f, b, h);
   if (refineSteps > 0) {
-    const rhs = new Float64Array(p * h);
     const dw = new Float64Array(p * h);
     const res = new Float64Array((r1 - r0) * h);
     for (let s = 0; s < refineSteps; s++) {
-      residual(a, p, w, y, h, r0, r1, res);
-      // rhs = A^T r - lambda W, with A rows [r0, r1) and r indexed from 0.
-      rhs.fill(0);
-      for (let n = r0; n < r1; n++) {
-        const ao = n * p;
-        const ro = (n - r0) * h;
-        for (let i = 0; i < p; i++) {
-          const v = a[ao + i];
-          if (v === 0) continue;
-          for (let c = 0; c < h; c++) rhs[i * h + c] += v * res[ro + c];
-        }
-      }
+      // rhs = A^T (Y - A W) - Λ W, residuals from the original rows.
+      residualRows(a, p, w, y, h, r0, r1, res);
+      const rhs = crossRowsOffset(a, p, res, h, r0, r1);
       for (let i = 0; i < p; i++) {
         const li = lam[i];
         if (li !== 0) for (let c = 0; c < h; c++) rhs[i * h + c] -= li * w[i * h + c];
@@ -199,6 +142,12 @@ export function ridgeSolve(
     }
   }
   return { w, lambda: lam, raised, factor: f };
+}
+
+/** A^T R for rows [r0, r1) of A when R's rows are indexed from 0. */
+function crossRowsOffset(a: Float64Array, p: number, res: Float64Array, h: number, r0: number, r1: number): Float64Array {
+  if (r0 === 0) return crossRows(a, p, res, h, 0, r1);
+  return crossRows(a.subarray(r0 * p, r1 * p), p, res, h, 0, r1 - r0);
 }
 
 /**

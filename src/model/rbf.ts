@@ -10,7 +10,8 @@ import { ModelError } from './errors.ts';
 import { checkDense, checkInt, checkNumber } from './check.ts';
 import { kmeans } from './kmeans.ts';
 import { dist2All, rowNorms2 } from './distance.ts';
-import { crossProduct, gram, residual, ridgeSolve } from './linalg.ts';
+import { ridgeSolve } from './linalg.ts';
+import { gramCross, matmul, residualRows } from './blas.ts';
 
 /** Defaults of every fit option (the one place they live). */
 export const DEFAULT_FIT_OPTIONS: Readonly<Required<Omit<FitOptions, 'warmStart'>>> = Object.freeze({
@@ -75,7 +76,7 @@ export function designMatrix(d2: Float64Array, nRows: number, nCentres: number, 
 /** Mean squared error of Phi W against Y over rows [r0, r1), all outputs. */
 export function mseRows(phi: Float64Array, p: number, w: Float64Array, y: Float64Array, h: number, r0: number, r1: number, scratch?: Float64Array): number {
   if (r1 <= r0) return NaN;
-  const r = residual(phi, p, w, y, h, r0, r1, scratch ?? new Float64Array((r1 - r0) * h));
+  const r = residualRows(phi, p, w, y, h, r0, r1, scratch ?? new Float64Array((r1 - r0) * h));
   let s = 0;
   for (let i = 0; i < (r1 - r0) * h; i++) s += r[i] * r[i];
   return s / ((r1 - r0) * h);
@@ -90,18 +91,17 @@ export function logGammaGradient(phi: Float64Array, p: number, d2: Float64Array,
   const K = nCentres;
   const nRows = r1 - r0;
   // residual() gives Y - Phi W; the sign is folded into the final factor.
-  const res = residual(phi, p, w, y, h, r0, r1);
+  const res = residualRows(phi, p, w, y, h, r0, r1);
+  // G = R W_g^T (nRows x K), then acc_k = Σ_n G[n,k] φ[n,k] d2[n,k].
+  const wgT = new Float64Array(h * K);
+  for (let k = 0; k < K; k++) for (let c = 0; c < h; c++) wgT[c * K + k] = w[(1 + k) * h + c];
+  const gm = matmul(res, nRows, h, wgT, K);
   const acc = new Float64Array(K);
   for (let n = 0; n < nRows; n++) {
-    const ro = n * h;
-    const po = (n + r0) * p;
+    const po = (n + r0) * p + 1;
     const dOff = (n + r0) * K;
-    for (let k = 0; k < K; k++) {
-      const wo = (1 + k) * h;
-      let g = 0;
-      for (let c = 0; c < h; c++) g += res[ro + c] * w[wo + c];
-      acc[k] += g * phi[po + 1 + k] * d2[dOff + k];
-    }
+    const go = n * K;
+    for (let k = 0; k < K; k++) acc[k] += gm[go + k] * phi[po + k] * d2[dOff + k];
   }
   const out = new Float64Array(K);
   for (let k = 0; k < K; k++) out[k] = (2 * gammas[k] / (nRows * h)) * acc[k];
@@ -269,7 +269,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     return lam;
   };
   const solveWith = (g: Float64Array, b: Float64Array, rows: number, refineSteps: number, gRidge: number): Float64Array => {
-    const r = ridgeSolve(phi, P, y.data, H, 0, rows, penalties(g, gRidge), refineSteps, g, b);
+    const r = ridgeSolve(phi, P, y.data, H, 0, rows, penalties(g, gRidge), refineSteps, { g, b });
     if (r === null) {
       throw new ModelError('SINGULAR_SYSTEM', `the ${P}x${P} weight system is singular even with a raised ridge`, { where: 'fit', value: P }, 'raise opts.ridge or use fewer centres');
     }
@@ -277,9 +277,9 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     return r.w;
   };
   const normal = (rows: number): { g: Float64Array; b: Float64Array } => {
-    const g = gram(phi, P, 0, rows);
+    const { g, b } = gramCross(phi, P, y.data, H, 0, rows);
     if (!o.bias) g[0] = 1;
-    return { g, b: crossProduct(phi, P, y.data, H, 0, rows) };
+    return { g, b };
   };
   const solve = (rows: number, refineSteps: number): Float64Array => {
     const { g, b } = normal(rows);

@@ -1,0 +1,134 @@
+/**
+ * Writes the SIMD kernels as WebAssembly text (kernels.wat, generated here because the register
+ * blocks are repetitive) and compiles them with wat2wasm from the npm package `wabt` (dev
+ * dependency) into kernels.wasm and kernels.wasm.ts (the bytes as base64, so loading needs no
+ * file I/O and works the same in worker threads). Run after editing this file:
+ *   npx tsx src/model/wasm/build.ts
+ *
+ * Kernel: C = A B (A m x k, B k x n, row-major float64, n even), 4 rows x 4 columns per register
+ * block: per step of the shared axis, 2 vector loads of B, 4 splat loads of A, 8 f64x2 multiply-adds.
+ * Mode 1 (distances) stores max(0, a2[i] + b2[j] - 2 C[i, j]) instead of C[i, j]; mode 2 adds
+ * A B to C (used to sum products over chunks of rows that fit in cache).
+ */
+import { writeFileSync } from 'node:fs';
+import path from 'node:path';
+import { fileURLToPath } from 'node:url';
+import wabtInit from 'wabt';
+
+const dir = path.dirname(fileURLToPath(import.meta.url));
+
+/** One register block of R rows x V vectors (2V columns) at rows i.., columns j.. */
+function block(R: number, V: number): string {
+  const acc = (r: number, v: number) => `$s${r}${v}`;
+  const lines: string[] = [];
+  for (let r = 0; r < R; r++) for (let v = 0; v < V; v++) lines.push(`(local.set ${acc(r, v)} (f64x2.splat (f64.const 0)))`);
+  // pointers: $pa = &A[i, 0], $pb = &B[0, j]
+  lines.push('(local.set $pa (i32.add (local.get $a) (i32.mul (local.get $i) (local.get $rowa))))');
+  lines.push('(local.set $pb (i32.add (local.get $b) (i32.shl (local.get $j) (i32.const 3))))');
+  lines.push('(local.set $l (i32.const 0))');
+  const body: string[] = [];
+  for (let v = 0; v < V; v++) body.push(`(local.set $y${v} (v128.load offset=${16 * v} (local.get $pb)))`);
+  for (let r = 0; r < R; r++) {
+    const addr = r === 0 ? '(local.get $pa)' : `(i32.add (local.get $pa) (i32.mul (i32.const ${r}) (local.get $rowa)))`;
+    body.push(`(local.set $x (v128.load64_splat ${addr}))`);
+    for (let v = 0; v < V; v++) body.push(`(local.set ${acc(r, v)} (f64x2.add (local.get ${acc(r, v)}) (f64x2.mul (local.get $x) (local.get $y${v}))))`);
+  }
+  body.push('(local.set $pa (i32.add (local.get $pa) (i32.const 8)))');
+  body.push('(local.set $pb (i32.add (local.get $pb) (local.get $rowb)))');
+  body.push('(local.set $l (i32.add (local.get $l) (i32.const 1)))');
+  lines.push(`(block $lend (loop $lloop (br_if $lend (i32.ge_u (local.get $l) (local.get $k)))\n        ${body.join('\n        ')}\n        (br $lloop)))`);
+  // Epilogue: store, or the clipped distance form.
+  for (let r = 0; r < R; r++) {
+    for (let v = 0; v < V; v++) {
+      const dst = `(i32.add (local.get $c) (i32.shl (i32.add (i32.mul (i32.add (local.get $i) (i32.const ${r})) (local.get $n)) (i32.add (local.get $j) (i32.const ${2 * v}))) (i32.const 3)))`;
+      const dist = `(f64x2.pmax (f64x2.splat (f64.const 0)) (f64x2.sub (f64x2.add (v128.load64_splat (i32.add (local.get $a2) (i32.shl (i32.add (local.get $i) (i32.const ${r})) (i32.const 3)))) (v128.load (i32.add (local.get $b2) (i32.shl (i32.add (local.get $j) (i32.const ${2 * v})) (i32.const 3))))) (f64x2.add (local.get ${acc(r, v)}) (local.get ${acc(r, v)}))))`;
+      const sum = `(f64x2.add (v128.load ${dst}) (local.get ${acc(r, v)}))`;
+      lines.push(`(if (i32.eq (local.get $mode) (i32.const 1)) (then (v128.store ${dst} ${dist})) (else (if (i32.eq (local.get $mode) (i32.const 2)) (then (v128.store ${dst} ${sum})) (else (v128.store ${dst} (local.get ${acc(r, v)}))))))`);
+    }
+  }
+  return lines.join('\n      ');
+}
+
+function kernel(): string {
+  const locals = ['(local $i i32) (local $j i32) (local $l i32) (local $pa i32) (local $pb i32) (local $rowa i32) (local $rowb i32)', '(local $x v128) (local $y0 v128) (local $y1 v128)'];
+  for (let r = 0; r < 4; r++) locals.push(`(local $s${r}0 v128) (local $s${r}1 v128)`);
+  // Column loop for a band of R rows: blocks of 4 columns, then one of 2.
+  const band = (R: number) => `(local.set $j (i32.const 0))
+    (block $jend${R} (loop $jloop${R} (br_if $jend${R} (i32.gt_s (i32.add (local.get $j) (i32.const 4)) (local.get $n)))
+      ${block(R, 2)}
+      (local.set $j (i32.add (local.get $j) (i32.const 4)))
+      (br $jloop${R})))
+    (if (i32.lt_s (local.get $j) (local.get $n)) (then
+      ${block(R, 1)}))`;
+  return `(func $kernel (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32) (param $c i32)
+      (param $mode i32) (param $a2 i32) (param $b2 i32)
+    ${locals.join('\n    ')}
+    (local.set $rowa (i32.shl (local.get $k) (i32.const 3)))
+    (local.set $rowb (i32.shl (local.get $n) (i32.const 3)))
+    (local.set $i (i32.const 0))
+    (block $iend (loop $iloop (br_if $iend (i32.gt_s (i32.add (local.get $i) (i32.const 4)) (local.get $m)))
+    ${band(4)}
+    (local.set $i (i32.add (local.get $i) (i32.const 4)))
+    (br $iloop)))
+    (block $iend1 (loop $iloop1 (br_if $iend1 (i32.ge_s (local.get $i) (local.get $m)))
+    ${band(1)}
+    (local.set $i (i32.add (local.get $i) (i32.const 1)))
+    (br $iloop1))))`;
+}
+
+const wat = `;; Generated by src/model/wasm/build.ts; edit that file, not this one.
+;; gemm(a, m, k, b, n, c):               C = A B          (A m x k, B k x n, n even; row-major f64)
+;; gemmAdd(a, m, k, b, n, c):            C += A B
+;; dist2(a, m, k, b, n, a2, b2, c):      C[i,j] = max(0, a2[i] + b2[j] - 2 (A B)[i,j])
+;; argmin(d, m, n, stride, labels, mind): per row of D the first smallest value and its index
+;; Pointers are byte offsets into the exported memory (16-byte aligned).
+(module
+  (memory (export "memory") 1)
+  ${kernel()}
+  (func (export "gemm") (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32) (param $c i32)
+    (call $kernel (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
+      (i32.const 0) (i32.const 0) (i32.const 0)))
+  (func (export "gemmAdd") (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32) (param $c i32)
+    (call $kernel (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
+      (i32.const 2) (i32.const 0) (i32.const 0)))
+  ;; Row-wise argmin of D (m rows of n values, row stride \$stride values): labels[i] (i32) and
+  ;; mind[i] = the smallest value (first on ties), returns their sum.
+  (func (export "argmin") (param $d i32) (param $m i32) (param $n i32) (param $stride i32) (param $labels i32) (param $mind i32) (result f64)
+    (local $i i32) (local $j i32) (local $p i32) (local $best f64) (local $bk i32) (local $v f64) (local $sum f64)
+    (block $iend (loop $iloop (br_if $iend (i32.ge_s (local.get $i) (local.get $m)))
+      (local.set $p (i32.add (local.get $d) (i32.shl (i32.mul (local.get $i) (local.get $stride)) (i32.const 3))))
+      (local.set $best (f64.load (local.get $p)))
+      (local.set $bk (i32.const 0))
+      (local.set $j (i32.const 1))
+      (block $jend (loop $jloop (br_if $jend (i32.ge_s (local.get $j) (local.get $n)))
+        (local.set $v (f64.load (i32.add (local.get $p) (i32.shl (local.get $j) (i32.const 3)))))
+        (if (f64.lt (local.get $v) (local.get $best)) (then (local.set $best (local.get $v)) (local.set $bk (local.get $j))))
+        (local.set $j (i32.add (local.get $j) (i32.const 1)))
+        (br $jloop)))
+      (i32.store (i32.add (local.get $labels) (i32.shl (local.get $i) (i32.const 2))) (local.get $bk))
+      (f64.store (i32.add (local.get $mind) (i32.shl (local.get $i) (i32.const 3))) (local.get $best))
+      (local.set $sum (f64.add (local.get $sum) (local.get $best)))
+      (local.set $i (i32.add (local.get $i) (i32.const 1)))
+      (br $iloop)))
+    (local.get $sum))
+  (func (export "dist2") (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32)
+      (param $a2 i32) (param $b2 i32) (param $c i32)
+    (call $kernel (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
+      (i32.const 1) (local.get $a2) (local.get $b2)))
+)
+`;
+
+const wabt = await wabtInit();
+writeFileSync(path.join(dir, 'kernels.wat'), wat);
+const mod = wabt.parseWat('kernels.wat', wat, { simd: true });
+mod.validate();
+const { buffer } = mod.toBinary({});
+const b64 = Buffer.from(buffer).toString('base64');
+const lines = b64.match(/.{1,100}/g) ?? [];
+writeFileSync(
+  path.join(dir, 'kernels.wasm.ts'),
+  `// Generated by src/model/wasm/build.ts (${buffer.length} bytes of WebAssembly); do not edit.\n` +
+    `export const KERNELS_WASM_BASE64 =\n${lines.map((l) => `  '${l}'`).join(' +\n')};\n`,
+);
+writeFileSync(path.join(dir, 'kernels.wasm'), buffer);
+console.log(`kernels.wasm: ${buffer.length} bytes`);
