@@ -17,7 +17,7 @@ import type { ResolvedSeries } from '../config/resolve.ts';
 import type { ForecastBatch, ForecastPoint, HealthPoint, ScorePoint, SeriesStore, SourceSelector } from '../store/types.ts';
 import type { Reading, RegularSeries } from '../series/types.ts';
 import { regularize, lastValueIndex } from '../series/index.ts';
-import { bandsForForecast, DEFAULT_RESIDUAL_CAPACITY } from '../evaluate/bands.ts';
+import { addResiduals, bandsForForecast, DEFAULT_RESIDUAL_CAPACITY, originPhase, residualPoolFromRows } from '../evaluate/bands.ts';
 import { MetricAccumulator, quantileKey, seasonalScale, type MetricSet } from '../evaluate/metrics.ts';
 import { systemClock, type Clock } from './clock.ts';
 import { Backoff } from './backoff.ts';
@@ -261,7 +261,10 @@ export class SeriesCycle {
       // State reads count as preparation: the fit stage is the work inside the worker.
       const capacity = this.#o.residualCapacity ?? DEFAULT_RESIDUAL_CAPACITY;
       const warm = await timed('prepare', () => state.getModel(r.name));
-      const pool = await timed('prepare', () => state.getResiduals(r.name, H, capacity));
+      const phases = s.features.seasonSteps;
+      const rows = await timed('prepare', () => state.getResiduals(r.name, capacity));
+      // Residuals depend on the hour a forecast is issued at: the pool keeps each one's origin phase.
+      const pool = residualPoolFromRows(rows, { horizon: H, stepMs: step, phases, capacityPerLead: capacity });
       const poolEmpty = pool.byLead.every((l) => l.length === 0);
       const wall0 = this.#clock.monotonicMs();
       let fr;
@@ -291,13 +294,12 @@ export class SeriesCycle {
               const t = target.startMs + (o + lead) * step;
               if (Number.isFinite(v)) {
                 seed.push({ lead, t, residual: v });
-                pool.byLead[i].push(v);
+                addResiduals(pool, lead, [v], originPhase(target.startMs + o * step, step, phases));
               }
             });
-            if (pool.byLead[i].length > capacity) pool.byLead[i].splice(0, pool.byLead[i].length - capacity);
           });
         }
-        const bands = bandsForForecast(fr.forecast.values, pool, s.quantiles);
+        const bands = bandsForForecast(fr.forecast.values, pool, s.quantiles, { phase: originPhase(fr.forecast.originMs, step, phases) });
         const points: ForecastPoint[] = [];
         for (let h = 0; h < H; h++) {
           points.push({ t: fr.forecast.targetTimes[h], lead: h + 1, value: fr.forecast.values[h], bands: bands[h] });

@@ -9,7 +9,6 @@ import type { ResolvedSeries } from '../config/resolve.ts';
 import type { FittedForecaster, ForecastOutput, HoldoutResiduals } from '../forecast/engine.ts';
 import type { ForecastSettings } from '../forecast/types.ts';
 import type { RegularSeries } from '../series/types.ts';
-import type { ResidualPool } from '../evaluate/bands.ts';
 
 /** One issued forecast step as kept in the ledger until its actual arrives and it is scored. */
 export interface IssuedStep {
@@ -37,8 +36,8 @@ export interface ResidualEntry {
 export interface CycleState {
   getModel(series: string): Promise<FittedForecaster | null>;
   putModel(series: string, fitted: FittedForecaster, atMs: number): Promise<void>;
-  /** The newest `perLead` residuals of each lead 1..horizon as a pool (empty lists when none). */
-  getResiduals(series: string, horizon: number, perLead: number): Promise<ResidualPool>;
+  /** The newest `perLead` residuals of each lead, oldest first (empty when none). */
+  getResiduals(series: string, perLead: number): Promise<ResidualEntry[]>;
   /** Add residuals; only the newest `keepPerLead` per lead are kept. */
   addResiduals(series: string, rows: ResidualEntry[], keepPerLead: number): Promise<void>;
   /** Ledger: record every step of the batch (idempotent per issue time + lead); also the series' latest forecast. */

@@ -9,7 +9,6 @@ import type { StateStore } from '../store/state.ts';
 import type { ForecastBatch } from '../store/types.ts';
 import type { RbfModel } from '../model/types.ts';
 import { parseFittedForecaster, type FittedForecaster } from '../forecast/engine.ts';
-import { createResidualPool, type ResidualPool } from '../evaluate/bands.ts';
 import { describeError } from './errors.ts';
 import type { CycleState, IssuedStep, ResidualEntry } from './ports.ts';
 
@@ -52,12 +51,10 @@ export class StateAdapter implements CycleState {
     this.store.saveModel(series, fitted as unknown as RbfModel, atMs);
   }
 
-  async getResiduals(series: string, horizon: number, perLead: number): Promise<ResidualPool> {
-    const pool = createResidualPool(horizon, perLead);
-    for (const [lead, rows] of this.store.residuals(series, perLead)) {
-      if (lead >= 1 && lead <= horizon) pool.byLead[lead - 1] = rows.map((r) => r.residual);
-    }
-    return pool;
+  async getResiduals(series: string, perLead: number): Promise<ResidualEntry[]> {
+    const out: ResidualEntry[] = [];
+    for (const rows of this.store.residuals(series, perLead).values()) out.push(...rows);
+    return out.sort((a, b) => a.t - b.t || a.lead - b.lead);
   }
 
   async addResiduals(series: string, rows: ResidualEntry[], keepPerLead: number): Promise<void> {

@@ -101,7 +101,7 @@ describe('series cycle', () => {
     // Residuals per lead grew by one matured forecast (the newest entry of each lead).
     for (let h = 0; h < 24; h++) {
       const l = state.residualsOf('brennick-yard', h + 1);
-      expect(l.length).toBe(Math.min(120, poolBefore[h] + 1));
+      expect(l.length).toBe(Math.min(336, poolBefore[h] + 1));
       expect(l[l.length - 1]).toBeCloseTo(errs[h], 9);
     }
   });

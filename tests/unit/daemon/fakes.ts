@@ -3,7 +3,6 @@ import type { ForecastBatch, HealthPoint, ScorePoint, SeriesStore, SourceSelecto
 import type { Reading } from '../../../src/series/types.ts';
 import type { CycleState, IssuedStep, ResidualEntry } from '../../../src/daemon/ports.ts';
 import type { FittedForecaster } from '../../../src/forecast/engine.ts';
-import { createResidualPool, type ResidualPool } from '../../../src/evaluate/bands.ts';
 import { parseConfigObject } from '../../../src/config/load.ts';
 import type { ResolvedSeries } from '../../../src/config/resolve.ts';
 import { mulberry32 } from '../../../src/model/index.ts';
@@ -68,12 +67,11 @@ export class MemoryState implements CycleState {
   async putModel(series: string, fitted: FittedForecaster) {
     this.models.set(series, structuredClone(fitted));
   }
-  async getResiduals(series: string, horizon: number, perLead: number): Promise<ResidualPool> {
-    const pool = createResidualPool(horizon, perLead);
+  async getResiduals(series: string, perLead: number): Promise<ResidualEntry[]> {
     const rows = [...(this.residuals.get(series) ?? [])].sort((a, b) => a.t - b.t);
-    for (const r of rows) if (r.lead <= horizon) pool.byLead[r.lead - 1].push(r.residual);
-    pool.byLead = pool.byLead.map((l) => l.slice(-perLead));
-    return pool;
+    const out: ResidualEntry[] = [];
+    for (const lead of new Set(rows.map((r) => r.lead))) out.push(...rows.filter((r) => r.lead === lead).slice(-perLead));
+    return out.sort((a, b) => a.t - b.t || a.lead - b.lead);
   }
   async addResiduals(series: string, rows: ResidualEntry[], keepPerLead: number) {
     const byKey = new Map((this.residuals.get(series) ?? []).map((r) => [`${r.lead}|${r.t}`, r]));
