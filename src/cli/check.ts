@@ -54,7 +54,7 @@ export function describeSeries(r: ResolvedSeries): string {
     `  backtest     ${r.backtest.origins} origins, every ${steps(r.backtest.everySteps, s.stepMs)} over ${steps(r.backtest.spanSteps, s.stepMs)}`,
     `  bands        quantiles ${s.quantiles.join(', ')}`,
     d.enabled
-      ? `  drift        ${d.method} (delta ${d.delta}, watch ${d.watchThreshold}, alert ${d.alertThreshold}), dwell ${formatDurationMs(d.dwellMs) || '0'}, novelty below ${d.novelty.activation} on ${Math.round(d.novelty.share * 100)}% of ${d.novelty.windowSteps} inputs, stale after ${formatDurationMs(d.staleAfterMs)}, webhook ${d.webhook ? 'on' : 'off'}`
+      ? `  drift        CUSUM (allowance ${d.settings.allowance}, watch ${d.settings.watchThreshold}, alert ${d.settings.alertThreshold}, recovery ${d.settings.recoveryThreshold}; batch ${d.settings.batchSteps} steps), dwell ${d.settings.dwellSteps} steps, novelty below ${d.settings.novelty.activation} on ${Math.round(d.settings.novelty.share * 100)}% of ${d.settings.novelty.windowSteps} steps, stale after ${formatDurationMs(d.settings.staleAfterMs)}, webhook ${d.webhook ? `on (again every ${formatDurationMs(d.webhook.resendEveryMs) || 'never'} in alert)` : 'off'}`
       : '  drift        off',
     `  output       ${r.output.name}`,
   ];

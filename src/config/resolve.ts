@@ -6,6 +6,7 @@
  */
 import Holidays from 'date-holidays';
 import type { ForecastSettings } from '../forecast/types.ts';
+import { checkDriftSettings, DRIFT_DEFAULTS, type DriftSettings } from '../drift/settings.ts';
 import type { SourceSelector } from '../store/types.ts';
 import type { Config, SeriesEntry } from './schema.ts';
 import type { ConfigIssue, ConfigIssueCode } from './errors.ts';
@@ -23,10 +24,13 @@ export interface ResolvedExogenous {
 
 export interface ResolvedDrift {
   enabled: boolean;
-  method: 'page-hinkley' | 'cusum';
+  /** The drift layer's settings, every field from the config (src/drift/settings.ts). */
+  settings: DriftSettings;
+  /** @deprecated same as settings.allowance. */
   delta: number;
   watchThreshold: number;
   alertThreshold: number;
+  /** settings.dwellSteps * stepMs. */
   dwellMs: number;
   novelty: { activation: number; share: number; windowSteps: number };
   staleAfterMs: number;
@@ -128,6 +132,9 @@ export function resolveAll(config: Config, indices?: readonly number[]): { serie
     const noveltyWindow = steps(s.drift.novelty.window, ['drift', 'novelty', 'window'], 'drift.novelty.window', 1);
     const dwellSteps = steps(s.drift.dwell, ['drift', 'dwell'], 'drift.dwell', 0);
     const staleSteps = steps(s.drift.staleAfter, ['drift', 'staleAfter'], 'drift.staleAfter', 1);
+    const batchSteps = steps(s.drift.detector.batch, ['drift', 'detector', 'batch'], 'drift.detector.batch', 1);
+    const raiseSteps = steps(s.drift.detector.raiseAfter, ['drift', 'detector', 'raiseAfter'], 'drift.detector.raiseAfter', 1);
+    const resendSteps = s.drift.webhook ? steps(s.drift.webhook.resendEvery, ['drift', 'webhook', 'resendEvery'], 'drift.webhook.resendEvery', 0) : 0;
 
     const lagsR = expandLags(s.lags, step);
     const lags = lagsR.ok ? lagsR.value : [];
@@ -199,7 +206,33 @@ export function resolveAll(config: Config, indices?: readonly number[]): { serie
     }
 
     const d = s.drift;
-    if (d.detector.watchThreshold >= d.detector.alertThreshold) push('CONFIG_COMBINATION', ['drift', 'detector', 'watchThreshold'], `watchThreshold (${d.detector.watchThreshold}) is not below alertThreshold (${d.detector.alertThreshold})`, 'watch must be reached before alert');
+    const driftSettings: DriftSettings = {
+      allowance: d.detector.allowance,
+      watchThreshold: d.detector.watchThreshold,
+      alertThreshold: d.detector.alertThreshold,
+      recoveryThreshold: d.detector.recoveryThreshold,
+      batchSteps,
+      spreadPrior: d.detector.spreadPrior,
+      clipRatio: d.detector.clipRatio,
+      raiseAfterSteps: raiseSteps,
+      dwellSteps,
+      novelty: { activation: d.novelty.activation, share: d.novelty.share, windowSteps: noveltyWindow },
+      staleAfterMs: staleSteps * step,
+      repeatAlertMs: d.webhook ? resendSteps * step : DRIFT_DEFAULTS.repeatAlertMs,
+    };
+    if (Object.values({ batchSteps, raiseSteps, dwellSteps, noveltyWindow, staleSteps, resendSteps }).every(Number.isFinite)) {
+      // The drift layer's own check, mapped back to config keys.
+      const KEY: Record<string, (string | number)[]> = {
+        allowance: ['drift', 'detector', 'allowance'], watchThreshold: ['drift', 'detector', 'watchThreshold'], alertThreshold: ['drift', 'detector', 'alertThreshold'],
+        recoveryThreshold: ['drift', 'detector', 'recoveryThreshold'], batchSteps: ['drift', 'detector', 'batch'], spreadPrior: ['drift', 'detector', 'spreadPrior'],
+        clipRatio: ['drift', 'detector', 'clipRatio'], raiseAfterSteps: ['drift', 'detector', 'raiseAfter'], dwellSteps: ['drift', 'dwell'],
+        'novelty.activation': ['drift', 'novelty', 'activation'], 'novelty.share': ['drift', 'novelty', 'share'], 'novelty.windowSteps': ['drift', 'novelty', 'window'],
+        staleAfterMs: ['drift', 'staleAfter'], repeatAlertMs: ['drift', 'webhook', 'resendEvery'],
+      };
+      for (const p of checkDriftSettings(driftSettings)) {
+        push(p.key === 'watchThreshold' ? 'CONFIG_COMBINATION' : 'CONFIG_VALUE', KEY[p.key] ?? ['drift'], `drift ${p.key} ${p.message}`, p.key === 'watchThreshold' ? 'watch must be reached before alert' : 'see drift in docs/config-reference.md');
+      }
+    }
     if (d.webhook) {
       const n = (d.webhook.urlEnv ? 1 : 0) + (d.webhook.urlFile ? 1 : 0);
       if (n !== 1) push('CONFIG_COMBINATION', ['drift', 'webhook'], n === 0 ? 'webhook needs urlEnv or urlFile' : 'webhook has both urlEnv and urlFile', 'give exactly one of urlEnv / urlFile');
@@ -263,16 +296,14 @@ export function resolveAll(config: Config, indices?: readonly number[]): { serie
       backtest: { everySteps, spanSteps, origins: Math.floor(spanSteps / everySteps) },
       drift: {
         enabled: d.enabled,
-        method: d.detector.method,
-        delta: d.detector.delta,
-        watchThreshold: d.detector.watchThreshold,
-        alertThreshold: d.detector.alertThreshold,
+        settings: driftSettings,
+        delta: driftSettings.allowance,
+        watchThreshold: driftSettings.watchThreshold,
+        alertThreshold: driftSettings.alertThreshold,
         dwellMs: dwellSteps * step,
-        novelty: { activation: d.novelty.activation, share: d.novelty.share, windowSteps: noveltyWindow },
-        staleAfterMs: staleSteps * step,
-        webhook: d.webhook
-          ? { resendEveryMs: (parseDurationMs(d.webhook.resendEvery) as { value: number }).value, timeoutMs: (parseDurationMs(d.webhook.timeout) as { value: number }).value }
-          : null,
+        novelty: { ...driftSettings.novelty },
+        staleAfterMs: driftSettings.staleAfterMs,
+        webhook: d.webhook ? { resendEveryMs: driftSettings.repeatAlertMs, timeoutMs: (parseDurationMs(d.webhook.timeout) as { value: number }).value } : null,
       },
       output: { name: outName },
     });

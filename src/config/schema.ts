@@ -8,7 +8,8 @@
  */
 import { z } from 'zod';
 import cron from 'node-cron';
-import { DURATION_PATTERN } from './duration.ts';
+import { DURATION_PATTERN, formatDurationMs } from './duration.ts';
+import { DRIFT_DEFAULTS } from '../drift/settings.ts';
 
 // ---------- small value types ----------
 
@@ -180,36 +181,41 @@ export const WebhookSchema = z
   .strictObject({
     urlEnv: envName('Environment variable holding the webhook URL (URLs often carry a token).').optional(),
     urlFile: z.string().min(1).optional().meta({ description: 'File holding the webhook URL; relative to the config file.' }),
-    resendEvery: duration('While in alert, send the alert again at this interval.').default('6h'),
+    resendEvery: stepsOrDuration('While in alert, send the alert again at this interval (0 = only on transitions).').default(formatDurationMs(DRIFT_DEFAULTS.repeatAlertMs)),
     timeout: duration('Timeout of one webhook request.').default('10s'),
   })
-  .meta({ description: 'Webhook notified on drift state transitions (POST JSON).' });
+  .meta({ description: 'Webhook notified on drift state transitions (POST JSON), kept in the state store until delivered.' });
 
+const D = DRIFT_DEFAULTS;
 export const DriftSchema = z
   .strictObject({
     enabled: z.boolean().default(true).meta({ description: 'Run drift detection for the series.' }),
     detector: z
       .strictObject({
-        method: z.enum(['page-hinkley', 'cusum']).default('page-hinkley').meta({ description: 'Sequential change detector on the scaled forecast errors.' }),
-        delta: z.number().nonnegative().default(0.1).meta({ description: 'Allowed drift of the scaled error above the backtest baseline before it accumulates.', unit: 'scaled error' }),
-        watchThreshold: z.number().positive().default(5).meta({ description: 'Statistic above which the state becomes watch.', unit: 'scaled error' }),
-        alertThreshold: z.number().positive().default(10).meta({ description: 'Statistic above which the state becomes alert.', unit: 'scaled error' }),
+        allowance: z.number().nonnegative().default(D.allowance).meta({ description: 'CUSUM reference allowance k: excess error below it is not accumulated; most sensitive to a rise of about 2k.', unit: 'spread units' }),
+        watchThreshold: z.number().positive().default(D.watchThreshold).meta({ description: 'Statistic at or above which the state rises to watch.', unit: 'spread units' }),
+        alertThreshold: z.number().positive().default(D.alertThreshold).meta({ description: 'Statistic at or above which the state rises to alert (the CUSUM decision interval h).', unit: 'spread units' }),
+        recoveryThreshold: z.number().positive().default(D.recoveryThreshold).meta({ description: 'Evidence of the recovery CUSUM needed to return from watch/alert to ok.', unit: 'spread units' }),
+        batch: stepsOrDuration('Matured target steps per batch: the time scale of the statistic and of its spread estimate.').default('1d'),
+        spreadPrior: z.number().positive().default(D.spreadPrior).meta({ description: 'Assumed spread (standard deviation of a batch mean of the error ratio) until enough in-control batches were seen.', unit: 'ratio' }),
+        clipRatio: z.number().gt(1).default(D.clipRatio).meta({ description: 'One matured step counts as at most this many times the baseline error (spike clip).', unit: 'ratio' }),
+        raiseAfter: stepsOrDuration('Matured steps the statistic must stay at or above a threshold before the state rises.').default(D.raiseAfterSteps),
       })
       .prefault({})
-      .meta({ description: 'Change detector parameters.' }),
-    dwell: stepsOrDuration('Minimum time in a state before it may change again (against flapping).').default('6h'),
+      .meta({ description: 'Change detector (CUSUM on forecast errors scaled by the backtest error level), in units of the batch-mean spread.' }),
+    dwell: stepsOrDuration('Minimum time in watch/alert before the state may return to ok (against flapping).').default('1d'),
     novelty: z
       .strictObject({
-        activation: z.number().gt(0).lt(1).default(0.05).meta({ description: 'An input is novel when its largest Gaussian activation is below this.', unit: 'activation' }),
-        share: z.number().gt(0).max(1).default(0.3).meta({ description: 'Share of novel recent inputs that raises watch.', unit: 'ratio' }),
-        window: stepsOrDuration('How many recent inputs the novelty share is taken over.').default('1d'),
+        activation: z.number().gt(0).lt(1).default(D.novelty.activation).meta({ description: 'An input is novel when its largest Gaussian activation is below this.', unit: 'activation' }),
+        share: z.number().gt(0).max(1).default(D.novelty.share).meta({ description: 'Share of novel recent inputs that raises watch (cleared below half of it).', unit: 'ratio' }),
+        window: stepsOrDuration('How far back the novelty share is taken.').default('1d'),
       })
       .prefault({})
       .meta({ description: 'Input novelty: inputs far from every centre.' }),
-    staleAfter: stepsOrDuration('No new readings for this long gives the state stale.').default('3h'),
+    staleAfter: stepsOrDuration('No new readings for this long gives the state stale.').default(formatDurationMs(D.staleAfterMs)),
     webhook: WebhookSchema.optional(),
   })
-  .meta({ description: 'Forecast-error drift detection.' });
+  .meta({ description: 'Forecast-error drift detection (src/drift).' });
 
 export const OutputSchema = z
   .strictObject({

@@ -2,6 +2,7 @@ import { describe, expect, it } from 'vitest';
 import { parseConfigText, parseConfigObject, resolveSeries, loadConfigFile } from '../../../src/config/load.ts';
 import { ConfigError, formatIssue, type ConfigIssue } from '../../../src/config/errors.ts';
 import { ConfigSchema } from '../../../src/config/schema.ts';
+import { DRIFT_DEFAULTS } from '../../../src/drift/settings.ts';
 
 const ok = (text: string) => {
   const r = parseConfigText(text, { baseDir: '/srv/radcast' });
@@ -34,7 +35,8 @@ describe('config defaults and resolution', () => {
     expect(s.schedule).toEqual({ cron: '5 * * * *', timeZone: 'UTC' });
     expect(s.backtest).toEqual({ everySteps: 24, spanSteps: 672, origins: 28 });
     expect(s.output.name).toBe('oskaveld-north');
-    expect(s.drift.dwellMs).toBe(6 * 3_600_000);
+    expect(s.drift.dwellMs).toBe(24 * 3_600_000);
+    expect(s.drift.settings).toEqual({ ...DRIFT_DEFAULTS, novelty: { ...DRIFT_DEFAULTS.novelty } }); // hourly defaults are the drift layer defaults
     expect(s.drift.webhook).toBeNull();
   });
 
@@ -260,5 +262,32 @@ series:
       const r = parseConfigObject(s);
       expect(r.ok).toBe(false);
     }
+  });
+});
+
+describe('drift settings', () => {
+  it('map one to one onto the drift layer settings, durations in the series step', () => {
+    const { series } = ok(`
+series:
+  - name: a
+    step: 15m
+    drift:
+      detector: { allowance: 0.5, watchThreshold: 4, alertThreshold: 8, recoveryThreshold: 3, batch: 6h, spreadPrior: 0.2, clipRatio: 4, raiseAfter: 2 }
+      dwell: 12h
+      novelty: { activation: 0.1, share: 0.5, window: 2h }
+      staleAfter: 1h
+      webhook: { urlEnv: HOOK, resendEvery: 2h }
+`);
+    expect(series[0].drift.settings).toEqual({
+      allowance: 0.5, watchThreshold: 4, alertThreshold: 8, recoveryThreshold: 3, batchSteps: 24, spreadPrior: 0.2, clipRatio: 4, raiseAfterSteps: 2, dwellSteps: 48,
+      novelty: { activation: 0.1, share: 0.5, windowSteps: 8 }, staleAfterMs: 3_600_000, repeatAlertMs: 7_200_000,
+    });
+    expect(series[0].drift.webhook).toEqual({ resendEveryMs: 7_200_000, timeoutMs: 10_000 });
+  });
+
+  it('the drift layer check runs on the resolved values, reported at the config keys', () => {
+    const list = issues('series: [{ name: a, drift: { detector: { watchThreshold: 12 }, webhook: { urlEnv: A, urlFile: b } } }]');
+    expect(at(list, 'series[0].drift.detector.watchThreshold')[0].code).toBe('CONFIG_COMBINATION');
+    expect(at(list, 'series[0].drift.webhook')[0].hint).toContain('exactly one');
   });
 });

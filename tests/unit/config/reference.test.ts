@@ -17,7 +17,7 @@ describe('generated config reference', () => {
       expect(meaning.length, r).toBeGreaterThan(3);
     }
     for (const key of Object.keys(ConfigSchema.shape)) expect(text).toContain(key === 'defaults' ? '`defaults`' : `\`${key}`);
-    for (const key of ['store.influxdb.tokenEnv', 'drift.detector.method', 'calendar.holidays.country', 'backtest.every', 'exogenous[].atTarget', 'source.aggregate']) {
+    for (const key of ['store.influxdb.tokenEnv', 'drift.detector.allowance', 'calendar.holidays.country', 'backtest.every', 'exogenous[].atTarget', 'source.aggregate']) {
       expect(text).toContain(`\`${key}\``);
     }
   });
