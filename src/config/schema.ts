@@ -177,6 +177,21 @@ export const BacktestSchema = z
   })
   .meta({ description: 'Rolling-origin backtest run before the first forecast and by `radcast backtest`.' });
 
+/** Grid of `radcast tune`; a grid given on the command line replaces that dimension. */
+export const TuneSchema = z
+  .strictObject({
+    windows: z
+      .array(z.union([z.number().int().positive(), z.string().regex(DURATION_PATTERN, { message: 'expected a step count or a duration like "8w"' })]))
+      .min(1)
+      .default(['4w', '8w', '16w'])
+      .meta({ description: 'Training windows tried (step counts or durations).', unit: 'steps | duration' }),
+    centres: z.array(z.number().int().positive().max(4096)).min(1).default([8, 16, 32, 64]).meta({ description: 'Numbers of Gaussian units K tried.', unit: 'count' }),
+    widthModes: z.array(z.enum(['shared', 'per-centre'])).min(1).default(['shared', 'per-centre']).meta({ description: 'Width modes tried.' }),
+    ridges: z.array(z.number().nonnegative()).default([]).meta({ description: "Relative ridge penalties tried; empty = keep the series' ridge.", unit: 'ratio' }),
+    lagSets: z.array(lagList('One lag list tried.')).default([]).meta({ description: "Lag lists tried; empty = keep the series' lags.", unit: 'steps' }),
+  })
+  .meta({ description: 'Settings grid searched by `radcast tune`: every combination is backtested like `radcast backtest`. Not used by the daemon.' });
+
 export const WebhookSchema = z
   .strictObject({
     urlEnv: envName('Environment variable holding the webhook URL (URLs often carry a token).').optional(),
@@ -249,6 +264,7 @@ export const seriesOptionsShape = {
   regularize: RegularizeSchema.prefault({}),
   refit: cronExpr.default('5 * * * *').meta({ description: 'Cron expression (node-cron, 5 or 6 fields) for refit-and-forecast, in the series time zone.' }),
   backtest: BacktestSchema.prefault({}),
+  tune: TuneSchema.prefault({}),
   quantiles: z
     .array(z.number().gt(0).lt(1))
     .default([0.1, 0.9])
