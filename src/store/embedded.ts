@@ -186,7 +186,9 @@ export class EmbeddedStore implements SeriesStore {
     this.#open();
     checkSeries(sel.name);
     try {
-      return this.#stmt.readRange.all(sel.name, Math.floor(fromMs), Math.ceil(toMs)).map((r) => ({ t: r.t, v: num(r.v) }));
+      // SQLite columns are not typed: another program may have put text or a blob into v. The
+      // contract is numbers only (non-numeric values as NaN).
+      return this.#stmt.readRange.all(sel.name, Math.floor(fromMs), Math.ceil(toMs)).map((r) => ({ t: r.t, v: typeof r.v === 'number' ? r.v : NaN }));
     } catch (e) {
       this.#busy(e);
     }
