@@ -17,10 +17,22 @@ export const MODEL_METHOD = 'rbf';
 /** Name of the ridge autoregression baseline. */
 export const RIDGE_METHOD = 'ridge-ar';
 
+/**
+ * An exogenous input used at target time that is itself a configured series: at each origin it is
+ * forecast with its own settings, and the target's forecast uses that forecast (as the daemon
+ * does), not the observed future values.
+ */
+export interface ExoModel {
+  name: string;
+  settings: ForecastSettings;
+}
+
 export interface ChainTask {
   target: RegularSeries;
   exo: Record<string, RegularSeries>;
   settings: ForecastSettings;
+  /** At-target exogenous inputs forecast at each origin (the others use observed values). */
+  exoModels: ExoModel[];
   /** Origin indices into target.values, ascending. */
   origins: number[];
   seasonal: SeasonalBaseline[];
@@ -106,6 +118,34 @@ function baselineCalibration(task: ChainTask, originIndex: number, vFirstIn: num
   return out;
 }
 
+/**
+ * The exogenous series as known at an origin: observed values up to the origin, then (for the
+ * inputs in task.exoModels) their own H-step forecast from that origin.
+ */
+function exoWithForecasts(task: ChainTask, originMs: number, warm: Map<string, FittedForecaster>): Record<string, RegularSeries> {
+  if (task.exoModels.length === 0) return task.exo;
+  const out: Record<string, RegularSeries> = { ...task.exo };
+  for (const m of task.exoModels) {
+    const s = task.exo[m.name];
+    if (!s) continue;
+    const oE = Math.floor((originMs - s.startMs) / s.stepMs);
+    const f = fitAt(s, {}, m.settings, oE, warm.get(m.name));
+    warm.set(m.name, f);
+    const fc = forecastAt(f, s, {}, m.settings, oE);
+    const values = new Float64Array(oE + 1 + fc.values.length);
+    values.set(s.values.subarray(0, oE + 1));
+    values.set(fc.values, oE + 1);
+    const next: RegularSeries = { ...s, values };
+    if (s.filled) {
+      const filled = new Uint8Array(values.length);
+      filled.set(s.filled.subarray(0, oE + 1));
+      next.filled = filled;
+    }
+    out[m.name] = next;
+  }
+  return out;
+}
+
 /** Runs the chain; `onOrigin` is called after each origin (progress). */
 export function runChain(task: ChainTask, onOrigin?: (o: OriginOutcome) => void): ChainResult {
   const { settings, target, exo } = task;
@@ -114,6 +154,7 @@ export function runChain(task: ChainTask, onOrigin?: (o: OriginOutcome) => void)
   const values = target.values;
   const outcomes: OriginOutcome[] = [];
   let warm: FittedForecaster | undefined;
+  const exoWarm = new Map<string, FittedForecaster>();
   let calibration: Record<string, Calibration> | undefined;
   for (let i = 0; i < task.origins.length; i++) {
     const o = task.origins[i];
@@ -122,8 +163,9 @@ export function runChain(task: ChainTask, onOrigin?: (o: OriginOutcome) => void)
     try {
       const wantCalibration = task.calibrate && calibration === undefined;
       let holdout: HoldoutResiduals | undefined;
-      const fitted = fitAt(target, exo, settings, o, warm, wantCalibration ? { holdout: true, onHoldout: (h) => (holdout = h) } : { holdout: false });
-      const fc = forecastAt(fitted, target, exo, settings, o);
+      const exoHere = exoWithForecasts(task, originMs, exoWarm);
+      const fitted = fitAt(target, exoHere, settings, o, warm, wantCalibration ? { holdout: true, onHoldout: (h) => (holdout = h) } : { holdout: false });
+      const fc = forecastAt(fitted, target, exoHere, settings, o);
       warm = fitted;
       const ws = Math.max(0, windowStart(settings, o));
       const actual: number[] = [];
@@ -161,6 +203,7 @@ export function runChain(task: ChainTask, onOrigin?: (o: OriginOutcome) => void)
       // One bad origin (a gap in its inputs, too little history) does not stop the backtest.
       outcome = { ok: false, originIndex: o, originMs, ...errorInfo(err) };
       warm = undefined;
+      exoWarm.clear();
     }
     outcomes.push(outcome);
     onOrigin?.(outcome);

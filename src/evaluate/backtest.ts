@@ -13,7 +13,7 @@ import type { RegularSeries } from '../series/types.ts';
 import type { ForecastSettings } from '../forecast/types.ts';
 import { ForecastError, isoAt } from '../forecast/errors.ts';
 import { scoreForecasts, type MetricSet } from './metrics.ts';
-import { addResiduals, applyBands, bandOffsets, createResidualPool, originPhase, DEFAULT_RESIDUAL_CAPACITY, type BandOptions } from './bands.ts';
+import { addResiduals, applyBands, bandOffsets, bandScale, createResidualPool, originPhase, scaleOffsets, DEFAULT_RESIDUAL_CAPACITY, type BandOptions } from './bands.ts';
 import { seasonalBaselines } from './baselines.ts';
 import { MODEL_METHOD, RIDGE_METHOD, type ChainTask, type OriginOutcome } from './backtest-chain.ts';
 import { defaultWorkers, runChains } from './pool.ts';
@@ -49,6 +49,13 @@ export interface BacktestOptions {
   signal?: AbortSignal;
   /** Clock for elapsed time (ms); default performance.now. */
   now?: () => number;
+  /**
+   * Settings of exogenous inputs that are configured series. An input used at target time is then
+   * forecast at every origin with these settings and the target uses that forecast, as the daemon
+   * does. Without them (or when the input has inputs of its own) the observed future values are
+   * used, i.e. a perfect forecast of the input; the result says which (exoAtTarget).
+   */
+  exoSettings?: Record<string, ForecastSettings>;
 }
 
 export interface MethodResult {
@@ -106,6 +113,8 @@ export interface BacktestResult {
     chosen: Array<{ nCentres: number; widthMode: string; ridge: number; origins: number }>;
   };
   fit: { medianMs: number; meanMs: number; coldFits: number; warmFits: number };
+  /** How each exogenous input used at target time was supplied: its own forecast, or the observed values. */
+  exoAtTarget: Record<string, 'forecast' | 'observed'>;
   workers: number;
   chainLength: number;
   elapsedMs: number;
@@ -162,8 +171,14 @@ export async function backtest(target: RegularSeries, exo: Record<string, Regula
   const chainLength = Math.max(1, Math.floor(opts.chainLength ?? 6));
   const seasonal = seasonalBaselines(settings.stepMs).filter((b) => b.m < settings.windowSteps);
   const cap = opts.residualCapacity ?? DEFAULT_RESIDUAL_CAPACITY;
-  // Send each worker only the part of the series it can use: from the first window to the end.
-  const from = Math.max(0, origins[0] - settings.windowSteps + 1);
+  // Send each worker only the part of the series it can use: from the first window to the end
+  // (the window of an input forecast with its own settings may reach further back).
+  let reach = settings.windowSteps;
+  for (const spec of settings.features.exogenous) {
+    const es = opts.exoSettings?.[spec.name];
+    if (spec.atTarget && es) reach = Math.max(reach, es.windowSteps);
+  }
+  const from = Math.max(0, origins[0] - reach + 1);
   const trimmed: RegularSeries = { ...target, startMs: target.startMs + from * target.stepMs, values: target.values.slice(from), ...(target.filled ? { filled: target.filled.slice(from) } : {}) };
   const exoTrimmed: Record<string, RegularSeries> = {};
   const fromMs = trimmed.startMs;
@@ -171,12 +186,22 @@ export async function backtest(target: RegularSeries, exo: Record<string, Regula
     const skip = Math.max(0, Math.floor((fromMs - s.startMs) / s.stepMs));
     exoTrimmed[name] = { ...s, startMs: s.startMs + skip * s.stepMs, values: s.values.slice(skip), ...(s.filled ? { filled: s.filled.slice(skip) } : {}) };
   }
+  const exoModels: ChainTask['exoModels'] = [];
+  const exoAtTarget: Record<string, 'forecast' | 'observed'> = {};
+  for (const spec of settings.features.exogenous) {
+    if (!spec.atTarget) continue;
+    const es = opts.exoSettings?.[spec.name];
+    const usable = es !== undefined && es.features.exogenous.length === 0 && es.features.horizon >= H && es.stepMs === settings.stepMs;
+    if (usable) exoModels.push({ name: spec.name, settings: { ...es, features: { ...es.features, horizon: H } } });
+    exoAtTarget[spec.name] = usable ? 'forecast' : 'observed';
+  }
   const tasks: ChainTask[] = [];
   for (let i = 0; i < origins.length; i += chainLength) {
     tasks.push({
       target: trimmed,
       exo: exoTrimmed,
       settings,
+      exoModels,
       origins: origins.slice(i, i + chainLength).map((o) => o - from),
       seasonal,
       ridgeArPenalty: opts.ridgeArPenalty ?? 1e-4,
@@ -205,16 +230,22 @@ export async function backtest(target: RegularSeries, exo: Record<string, Regula
 
   // Bands: for each origin, from the residuals matured before it (lead h of origin j matures at o_j + h).
   const bandsByOrigin: Array<Record<string, number[][]>> = good.map(() => ({}));
-  // Errors depend on the hour a forecast is issued at, so the pool keeps the origin's phase in the season.
+  // Errors depend on the hour a forecast is issued at, so the pool keeps the origin's phase in the
+  // season; and they grow with the series' variability (heat load errors scale with the load), so
+  // residuals are kept relative to their origin's seasonal scale and bands are scaled back with
+  // the scale at the new origin (see bands.ts).
   const phases = settings.features.seasonSteps;
   const phaseOf = (ms: number): number => originPhase(ms, settings.stepMs, phases);
+  const m = settings.features.seasonSteps;
+  const scaleAt = (oi: number): number => bandScale(trimmed.values, oi, settings.windowSteps, m);
   for (const name of methodNames) {
     const pool = createResidualPool(H, cap, phases);
     const seed = calibration[name];
     if (seed) {
       for (let k = 0; k < seed.originMs.length; k++) {
         const p = phaseOf(seed.originMs[k]);
-        for (let h = 0; h < H && h < seed.residualsByLead.length; h++) addResiduals(pool, h + 1, [seed.residualsByLead[h][k]], p);
+        const sc = scaleAt(Math.round((seed.originMs[k] - trimmed.startMs) / trimmed.stepMs));
+        for (let h = 0; h < H && h < seed.residualsByLead.length; h++) addResiduals(pool, h + 1, [seed.residualsByLead[h][k] / sc], p);
       }
     }
     const addedLeads = new Int32Array(good.length);
@@ -224,16 +255,15 @@ export async function backtest(target: RegularSeries, exo: Record<string, Regula
         const oj = good[j].originIndex;
         while (addedLeads[j] < H && oj + addedLeads[j] + 1 <= oi) {
           const h = addedLeads[j];
-          addResiduals(pool, h + 1, [good[j].actual[h] - good[j].forecasts[name][h]], phaseOf(good[j].originMs));
+          addResiduals(pool, h + 1, [(good[j].actual[h] - good[j].forecasts[name][h]) / scaleAt(good[j].originIndex)], phaseOf(good[j].originMs));
           addedLeads[j]++;
         }
       }
-      const off = bandOffsets(pool, quantiles, { ...opts.band, phase: phaseOf(good[i].originMs) });
+      const off = scaleOffsets(bandOffsets(pool, quantiles, { ...opts.band, phase: phaseOf(good[i].originMs) }), scaleAt(oi));
       bandsByOrigin[i][name] = applyBands(good[i].forecasts[name], off).map((b) => Array.from(b));
     }
   }
 
-  const m = settings.features.seasonSteps;
   const methods: MethodResult[] = methodNames.map((name) => {
     const summary = scoreForecasts(
       good.map((g, i) => ({ actual: g.actual, forecast: g.forecasts[name], scale: g.scale, bands: bandsByOrigin[i][name] })),
@@ -301,6 +331,7 @@ export async function backtest(target: RegularSeries, exo: Record<string, Regula
       coldFits: good.filter((g) => !g.warmStarted).length,
       warmFits: good.filter((g) => g.warmStarted).length,
     },
+    exoAtTarget,
     workers,
     chainLength,
     elapsedMs: now() - t0,
@@ -352,6 +383,7 @@ export function backtestJson(r: BacktestResult): Record<string, unknown> {
     maseByOrigin: Object.fromEntries(r.methods.map((x) => [x.name, x.byOrigin.map((o) => ({ at: isoAt(o.originMs), mase: o.mase }))])),
     auto: r.auto,
     fit: r.fit,
+    exoAtTarget: r.exoAtTarget,
   };
 }
 

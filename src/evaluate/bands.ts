@@ -9,10 +9,17 @@
  * to 1..n. Under exchangeability each one-sided band then holds with probability >= q (upper) or
  * <= q (lower), so the central band has coverage >= upper - lower.
  *
+ * Residuals are kept relative to a scale of their origin (bandScale: the in-sample mean absolute
+ * seasonal difference of the origin's training window, the MASE scale) and the offsets are
+ * multiplied by the scale at the new origin: errors of loads grow with the load, and a pool
+ * filled in autumn would otherwise give winter bands that are too narrow. This is the normalised
+ * variant of split-conformal prediction (Papadopoulos, Gammerman & Vovk 2008; locally weighted
+ * conformal inference in Lei et al. 2018, section 5.2). Pass scale 1 to get plain residuals.
+ *
  * The pool is plain JSON-able data so the daemon can keep it in its state store and refresh it as
  * forecasts mature; it is bounded per lead and drops the oldest residuals first (drops counted).
  */
-import { quantileKey } from './metrics.ts';
+import { quantileKey, seasonalScale } from './metrics.ts';
 
 export interface ResidualPool {
   version: 2;
@@ -98,11 +105,28 @@ export function addForecastResiduals(pool: ResidualPool, actual: ArrayLike<numbe
   return dropped;
 }
 
-/** A stored residual: lead, target time (epoch ms) and actual - forecast. */
+/**
+ * Normaliser of the residuals of a forecast from `originIndex`: the mean absolute seasonal
+ * difference over its training window (the MASE scale); 1 when that is not a positive number
+ * (constant or too short series), so bands never vanish or blow up.
+ */
+export function bandScale(values: ArrayLike<number>, originIndex: number, windowSteps: number, seasonSteps: number): number {
+  const s = seasonalScale(values, originIndex - windowSteps + 1, originIndex, Math.max(1, seasonSteps)).scale;
+  return Number.isFinite(s) && s > 0 ? s : 1;
+}
+
+/** Offsets multiplied by the scale at the new origin (residuals were stored divided by theirs). */
+export function scaleOffsets(band: BandOffsets, scale: number): BandOffsets {
+  return { ...band, offsets: band.offsets.map((o) => o.map((v) => v * scale)) };
+}
+
+/** A stored residual: lead, target time (epoch ms) and actual - forecast (divided by `scale` when given). */
 export interface ResidualRow {
   lead: number;
   t: number;
   residual: number;
+  /** bandScale of the forecast's origin; the pool keeps residual / scale. */
+  scale?: number;
 }
 
 /**
@@ -113,7 +137,8 @@ export function residualPoolFromRows(rows: readonly ResidualRow[], opts: { horiz
   const pool = createResidualPool(opts.horizon, opts.capacityPerLead ?? DEFAULT_RESIDUAL_CAPACITY, opts.phases ?? 1);
   for (const r of rows) {
     if (!Number.isInteger(r.lead) || r.lead < 1 || r.lead > opts.horizon) continue;
-    addResiduals(pool, r.lead, [r.residual], originPhase(r.t - r.lead * opts.stepMs, opts.stepMs, pool.phases));
+    const sc = r.scale !== undefined && Number.isFinite(r.scale) && r.scale > 0 ? r.scale : 1;
+    addResiduals(pool, r.lead, [r.residual / sc], originPhase(r.t - r.lead * opts.stepMs, opts.stepMs, pool.phases));
   }
   return pool;
 }
@@ -215,10 +240,11 @@ export function applyBands(values: ArrayLike<number>, band: BandOffsets): Float6
 /**
  * What the daemon calls: point forecast + stored residuals -> band values per lead, keyed by
  * quantile ("0.1" -> value) as the store's ForecastPoint.bands expects; pass the origin's phase
- * (originPhase) when the pool has phases. Leads without a band get an empty record.
+ * (originPhase) when the pool has phases, and its bandScale when the pool holds scaled residuals.
+ * Leads without a band get an empty record.
  */
-export function bandsForForecast(values: ArrayLike<number>, pool: ResidualPool, quantiles: readonly number[], opts: BandOptions & { phase?: number } = {}): Array<Record<string, number>> {
-  const band = bandOffsets(pool, quantiles, opts);
+export function bandsForForecast(values: ArrayLike<number>, pool: ResidualPool, quantiles: readonly number[], opts: BandOptions & { phase?: number; scale?: number } = {}): Array<Record<string, number>> {
+  const band = scaleOffsets(bandOffsets(pool, quantiles, opts), opts.scale ?? 1);
   const bands = applyBands(values, band);
   const out: Array<Record<string, number>> = [];
   for (let h = 0; h < values.length; h++) {

@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { addForecastResiduals, addResiduals, applyBands, bandOffsets, bandsForForecast, conformalQuantile, createResidualPool, originPhase, residualPoolFromRows } from '../../../src/evaluate/bands.ts';
+import { addForecastResiduals, addResiduals, applyBands, bandOffsets, bandsForForecast, conformalQuantile, createResidualPool, originPhase, residualPoolFromRows, bandScale } from '../../../src/evaluate/bands.ts';
 import { MetricAccumulator } from '../../../src/evaluate/metrics.ts';
 import { gaussian, rng } from '../forecast/fixtures.ts';
 
@@ -131,5 +131,25 @@ describe('pool from stored rows', () => {
     expect(pool.phaseByLead[2]).toEqual([5]);
     expect(pool.byLead[0]).toEqual([-2]);
     expect(pool.phaseByLead[0]).toEqual([23]);
+  });
+});
+
+describe('scaled residuals', () => {
+  it('bands follow the scale of the new origin', () => {
+    // Residuals stored relative to scale 2 at their origins; at an origin of scale 10 the band is 5x wider.
+    const rows = Array.from({ length: 60 }, (_, k) => ({ lead: 1, t: k * 3_600_000, residual: 2 * ((k % 11) - 5), scale: 2 }));
+    const pool = residualPoolFromRows(rows, { horizon: 1, stepMs: 3_600_000 });
+    const narrow = bandsForForecast([0], pool, [0.1, 0.9], { scale: 2 })[0];
+    const wide = bandsForForecast([0], pool, [0.1, 0.9], { scale: 10 })[0];
+    expect(wide['0.9'] - wide['0.1']).toBeCloseTo(5 * (narrow['0.9'] - narrow['0.1']), 12);
+  });
+
+  it('bandScale is the MASE scale of the window, and 1 for a constant window', () => {
+    // values 0, 1, ..., 9 with m = 1: every step difference is 1
+    const v = Array.from({ length: 10 }, (_, i) => i);
+    expect(bandScale(v, 9, 5, 1)).toBe(1);
+    const w = Array.from({ length: 10 }, (_, i) => 3 * i);
+    expect(bandScale(w, 9, 5, 1)).toBe(3);
+    expect(bandScale(new Array(10).fill(4), 9, 5, 1)).toBe(1);
   });
 });
