@@ -40,7 +40,8 @@ export function jsonForScript(value: unknown): string {
 }
 
 let chartSource: string | undefined;
-function chartJs(): string {
+/** chart.js UMD source, safe to inline in a <script> element (also used by the tune report). */
+export function chartJs(): string {
   if (chartSource === undefined) {
     const require = createRequire(import.meta.url);
     // The UMD build is not in the package's exports map; it sits beside the CommonJS entry.
@@ -107,7 +108,7 @@ function metricsTable(r: BacktestResult): string {
 }
 
 /** CSP source of an inline script: only the two scripts written here may run, nothing injected. */
-function scriptHash(code: string): string {
+export function scriptHash(code: string): string {
   return `'sha256-${createHash('sha256').update(code, 'utf8').digest('base64')}'`;
 }
 
