@@ -74,6 +74,11 @@ export function registerOnce(program: Command, ctx: CliContext = defaultContext(
           else if (r.outcome !== 'aborted') rt.stateStore.recordFailure(r.series, rt.clock.now(), r.error?.code ?? 'INTERNAL');
         }
         rt.metrics.runDuration.observe(sum.wallMs / 1000);
+        // Deliver the drift notices of this run once (what is not delivered stays in the outbox for the next run).
+        if (rt.notifier) {
+          const pass = await rt.notifier.flush();
+          if (pass.failed) logger.warn({ delivered: pass.delivered, failed: pass.failed }, 'some drift notices were not delivered; they stay queued for the next run');
+        }
         const byName = new Map(loaded.series.map((s) => [s.name, s]));
         ctx.io.out(opts.json ? JSON.stringify(runJson(sum)) + '\n' : formatRun(sum, byName));
         if (sum.failed + sum.stale + sum.aborted > 0) ctx.fail(EXIT.FAILED);

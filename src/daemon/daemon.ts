@@ -145,6 +145,7 @@ export class Daemon {
       }
     }
     sched.start();
+    rt.notifier?.start();
     const file = this.#loaded.file;
     if (file && (this.#o.watchConfig ?? cfg.daemon.watchConfig)) {
       this.#watcher = new ConfigWatcher({ file, logger: this.#logger, clock: this.#clock, onChange: () => void this.reload('file-change') });

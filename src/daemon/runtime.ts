@@ -23,6 +23,7 @@ import type { Fitter } from './ports.ts';
 import { StateAdapter } from './state-adapter.ts';
 import { ALL_SERIES, filterOwned, shardLabel, type ShardSpec } from './shard.ts';
 import { flushAndClose } from './close.ts';
+import { WebhookNotifier } from './webhook.ts';
 
 export interface RuntimeDeps {
   logger: Logger;
@@ -52,6 +53,8 @@ export interface Runtime {
   shard: ShardSpec;
   /** The series this instance owns (its shard of the config). */
   owned: ResolvedSeries[];
+  /** Delivers the drift notices kept in the state store's outbox (Daemon starts it, `once` flushes it); null when no series has a webhook. */
+  notifier: WebhookNotifier | null;
   /** Flush and close everything (idempotent). */
   close(): Promise<void>;
 }
@@ -88,12 +91,25 @@ export async function openRuntime(loaded: LoadedConfig, deps: RuntimeDeps): Prom
   const state = new StateAdapter(stateStore, logger);
   const workers = deps.workers ?? loaded.config.daemon.concurrency;
   const fitter: Fitter = workers > 0 ? new PoolFitter({ threads: workers }) : new InlineFitter();
+  const hooked = loaded.series.filter((s) => s.drift.enabled && s.drift.webhook && secrets.webhookUrl(s.name));
+  const timeouts = new Map(hooked.map((s) => [s.name, s.drift.webhook!.timeoutMs]));
+  const notifier = hooked.length
+    ? new WebhookNotifier({
+        outbox: stateStore,
+        urlFor: (series) => secrets.webhookUrl(series),
+        timeoutFor: (series) => timeouts.get(series),
+        clock,
+        logger: logger.child({ component: 'webhook' }),
+      })
+    : null;
   const drift = new CycleDriftAssessor({
     baselines: state,
     logger,
     onNotice: (notice, r) => {
-      // Kept in the outbox until delivered (the webhook sender reads it); only when a webhook is set.
-      if (r.drift.webhook && secrets.webhookUrl(r.name)) stateStore.enqueue(r.name, 'drift', notice, clock.now());
+      // Kept in the outbox until delivered (WebhookNotifier); only for series with a webhook.
+      if (!notifier || !timeouts.has(r.name)) return;
+      stateStore.enqueue(r.name, 'drift', notice, clock.now());
+      notifier.kick();
     },
   });
   const cycle = new SeriesCycle({ store, state, fitter, logger, clock, metrics, drift });
@@ -115,7 +131,12 @@ export async function openRuntime(loaded: LoadedConfig, deps: RuntimeDeps): Prom
     logger,
     shard,
     owned,
-    close: () => (closed ??= flushAndClose({ fitter, store, stateStore, logger })),
+    notifier,
+    close: () =>
+      (closed ??= (async () => {
+        await notifier?.stop();
+        await flushAndClose({ fitter, store, stateStore, logger });
+      })()),
   };
   return rt;
 }
