@@ -5,7 +5,7 @@
  */
 import { readFileSync } from 'node:fs';
 import { dirname, isAbsolute, resolve as resolvePath } from 'node:path';
-import { LineCounter, parseDocument } from 'yaml';
+import { LineCounter, parseDocument, visit } from 'yaml';
 import { z } from 'zod';
 import { ConfigSchema, SeriesEntrySchema, type Config } from './schema.ts';
 import { ConfigError, formatPath, type ConfigIssue, type ConfigIssueCode } from './errors.ts';
@@ -284,7 +284,40 @@ export function parseConfigText(text: string, opts: LoadOptions = {}): LoadResul
       })),
     };
   }
-  return parseConfigObject(doc.toJS({ maxAliasCount: 100 }), opts);
+  // toJS throws on an alias without its anchor and on alias bombs (too many expansions).
+  let raw: unknown;
+  try {
+    raw = doc.toJS({ maxAliasCount: 100 });
+  } catch (e) {
+    // Point at the alias to blame: the first one without its anchor, else the first one.
+    let first: number | undefined;
+    let unresolved: number | undefined;
+    visit(doc, {
+      Alias(_k, node) {
+        const at = node.range?.[0];
+        if (at === undefined) return;
+        first ??= at;
+        if (node.resolve(doc) === undefined) {
+          unresolved = at;
+          return visit.BREAK;
+        }
+      },
+    });
+    const pos = unresolved ?? first;
+    return {
+      ok: false,
+      issues: [
+        {
+          code: 'CONFIG_YAML',
+          path: '',
+          message: String((e as Error).message ?? e).split('\n')[0],
+          hint: 'define each anchor (&name) before its alias (*name) and do not nest aliases deeply',
+          ...(pos !== undefined ? { line: lineCounter.linePos(pos).line } : {}),
+        },
+      ],
+    };
+  }
+  return parseConfigObject(raw, opts);
 }
 
 /** Reads and validates a config file. `readFile` is injectable for tests. */

@@ -12,6 +12,9 @@ import type { Config, SeriesEntry } from './schema.ts';
 import type { ConfigIssue, ConfigIssueCode } from './errors.ts';
 import { expandLags, formatDurationMs, parseDurationMs, toSteps } from './duration.ts';
 
+/** Longest training window one refit can hold (steps). */
+export const MAX_WINDOW_STEPS = 1_000_000;
+
 export interface ResolvedExogenous {
   name: string;
   /** Selector to read it with: the configured series' own selector, its explicit `source`, or just the name. */
@@ -124,7 +127,12 @@ export function resolveAll(config: Config, indices?: readonly number[]): { serie
       return r.value;
     };
     const horizon = steps(s.horizon, ['horizon'], 'horizon', 1);
-    const windowSteps = steps(s.window, ['window'], 'window', 1);
+    let windowSteps = steps(s.window, ['window'], 'window', 1);
+    if (windowSteps > MAX_WINDOW_STEPS) {
+      // One refit holds the window several times over (grid, features, design matrix): beyond this it runs out of memory.
+      push('CONFIG_VALUE', ['window'], `window is ${windowSteps} steps; at most ${MAX_WINDOW_STEPS} are supported`, `shorten the window or use a longer step (e.g. 8 weeks of 5-second readings is ${8 * 7 * 24 * 720} steps)`);
+      windowSteps = NaN;
+    }
     const seasonSteps = steps(s.season, ['season'], 'season', 1);
     const maxFillSteps = steps(s.regularize.maxFill, ['regularize', 'maxFill'], 'regularize.maxFill', 0);
     const everySteps = steps(s.backtest.every, ['backtest', 'every'], 'backtest.every', 1);
