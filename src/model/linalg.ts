@@ -110,21 +110,9 @@ export function ridgeSolve(
   gb?: { g: Float64Array; b: Float64Array },
 ): RidgeSolveResult | null {
   const { g, b } = gb ?? gramCross(a, p, y, h, r0, r1);
-  const asked = typeof lambda === 'number' ? new Float64Array(p).fill(lambda) : lambda;
-  let lam = asked;
-  let raised = false;
-  let f = choleskyScaled(g, p, lam);
-  if (f === null) {
-    let tr = 0;
-    for (let i = 0; i < p; i++) tr += g[i * p + i];
-    const base = tr > 0 ? tr / p : 1;
-    for (let rel = 1e-12; f === null && rel <= 1; rel *= 100) {
-      lam = asked.map((v) => Math.max(v, rel * base));
-      raised = true;
-      f = choleskyScaled(g, p, lam);
-    }
-    if (f === null) return null;
-  }
+  const fr = factorRidge(g, p, lambda);
+  if (fr === null) return null;
+  const { factor: f, lambda: lam, raised } = fr;
   const w = choleskySolve(f, b, h);
   if (refineSteps > 0) {
     const dw = new Float64Array(p * h);
@@ -142,6 +130,29 @@ export function ridgeSolve(
     }
   }
   return { w, lambda: lam, raised, factor: f };
+}
+
+/**
+ * Cholesky factor of G + diag(lambda); when that is singular to working precision every lambda_j
+ * is raised to at least rel * mean diagonal (rel = 1e-12, 1e-10, ... 1). Null if nothing works.
+ */
+export function factorRidge(g: Float64Array, p: number, lambda: number | Float64Array): { factor: CholeskyFactor; lambda: Float64Array; raised: boolean } | null {
+  const asked = typeof lambda === 'number' ? new Float64Array(p).fill(lambda) : lambda;
+  let lam = asked;
+  let raised = false;
+  let f = choleskyScaled(g, p, lam);
+  if (f === null) {
+    let tr = 0;
+    for (let i = 0; i < p; i++) tr += g[i * p + i];
+    const base = tr > 0 ? tr / p : 1;
+    for (let rel = 1e-12; f === null && rel <= 1; rel *= 100) {
+      lam = asked.map((v) => Math.max(v, rel * base));
+      raised = true;
+      f = choleskyScaled(g, p, lam);
+    }
+    if (f === null) return null;
+  }
+  return { factor: f, lambda: lam, raised };
 }
 
 /** A^T R for rows [r0, r1) of A when R's rows are indexed from 0. */

@@ -33,6 +33,7 @@ interface Exports {
   gemmAdd(a: number, m: number, k: number, b: number, n: number, c: number): void;
   dist2(a: number, m: number, k: number, b: number, n: number, a2: number, b2: number, c: number): void;
   argmin(d: number, m: number, n: number, stride: number, labels: number, mind: number): number;
+  transpose(src: number, rows: number, cols: number, stride: number, dst: number): void;
 }
 
 const PAGE = 65536;
@@ -149,32 +150,44 @@ export function loadSimdKernels(): SimdKernels | null {
     },
     crossRows(a, p, r, h, r0, r1, withGram, out) {
       owner = null;
-      const nc = (withGram ? p : 0) + h;
-      const ncp = nc + (nc & 1);
-      const pc = 0;
-      const pa = align16(pc + p * ncp * 8);
-      const pb = align16(pa + p * CHUNK_ROWS * 8);
-      reserve(pb + CHUNK_ROWS * ncp * 8);
-      const oc = pc / 8, oa = pa / 8, ob = pb / 8;
-      f64.fill(0, oc, oc + p * ncp);
-      for (let s = r0; s < r1; s += CHUNK_ROWS) {
-        const cr = Math.min(CHUNK_ROWS, r1 - s);
-        // A chunk transposed (p x cr) and [A | R] chunk (cr x ncp).
-        for (let i = 0; i < cr; i++) {
-          const src = (s + i) * p;
-          const dst = ob + i * ncp;
-          for (let j = 0; j < p; j++) f64[oa + j * cr + i] = a[src + j];
-          let c = 0;
-          if (withGram) {
-            f64.set(a.subarray(src, src + p), dst);
-            c = p;
-          }
-          f64.set(r.subarray((s + i) * h, (s + i + 1) * h), dst + c);
-          if (ncp !== nc) f64[dst + nc] = 0;
+      // Rows [r0, r1) of A and R copied once (rows padded to an even width), then per chunk of
+      // rows: At = chunk^T in the module, C1 += At A_chunk, C2 += At R_chunk.
+      const n = r1 - r0;
+      const pe = p + (p & 1);
+      const he = h + (h & 1);
+      const p1 = 0;
+      const p2 = align16(p1 + (withGram ? pe * pe * 8 : 0));
+      const pA = align16(p2 + pe * he * 8);
+      const pR = align16(pA + n * pe * 8);
+      const pT = align16(pR + n * he * 8);
+      reserve(pT + pe * CHUNK_ROWS * 8);
+      const putRows = (src: Float64Array, w: number, we: number, at: number): void => {
+        const o = at / 8;
+        if (we === w) {
+          f64.set(src.subarray(r0 * w, r1 * w), o);
+          return;
         }
-        ex.gemmAdd(pa, p, cr, pb, ncp, pc);
+        for (let i = 0; i < n; i++) {
+          f64.set(src.subarray((r0 + i) * w, (r0 + i + 1) * w), o + i * we);
+          f64[o + i * we + w] = 0;
+        }
+      };
+      putRows(a, p, pe, pA);
+      putRows(r, h, he, pR);
+      if (withGram) f64.fill(0, p1 / 8, p1 / 8 + pe * pe);
+      f64.fill(0, p2 / 8, p2 / 8 + pe * he);
+      for (let s = 0; s < n; s += CHUNK_ROWS) {
+        const cr = Math.min(CHUNK_ROWS, n - s);
+        ex.transpose(pA + s * pe * 8, cr, pe, pe, pT);
+        if (withGram) ex.gemmAdd(pT, pe, cr, pA + s * pe * 8, pe, p1);
+        ex.gemmAdd(pT, pe, cr, pR + s * he * 8, he, p2);
       }
-      copyOut(pc, p, nc, ncp, out);
+      const nc = (withGram ? p : 0) + h;
+      for (let i = 0; i < p; i++) {
+        if (withGram) for (let j = 0; j < p; j++) out[i * nc + j] = f64[p1 / 8 + i * pe + j];
+        const o = withGram ? p : 0;
+        for (let c = 0; c < h; c++) out[i * nc + o + c] = f64[p2 / 8 + i * he + c];
+      }
       return out;
     },
     dist2(a, a2, m, c, c2, n, k, out) {

@@ -3,6 +3,7 @@
 ;; gemmAdd(a, m, k, b, n, c):            C += A B
 ;; dist2(a, m, k, b, n, a2, b2, c):      C[i,j] = max(0, a2[i] + b2[j] - 2 (A B)[i,j])
 ;; argmin(d, m, n, stride, labels, mind): per row of D the first smallest value and its index
+;; transpose(src, rows, cols, stride, dst): dst = src^T
 ;; Pointers are byte offsets into the exported memory (16-byte aligned).
 (module
   (memory (export "memory") 1)
@@ -152,6 +153,19 @@
       (local.set $i (i32.add (local.get $i) (i32.const 1)))
       (br $iloop)))
     (local.get $sum))
+  ;; dst (cols x rows) = transpose of src (rows x cols, row stride $stride values).
+  (func (export "transpose") (param $src i32) (param $rows i32) (param $cols i32) (param $stride i32) (param $dst i32)
+    (local $i i32) (local $j i32) (local $ps i32)
+    (block $iend (loop $iloop (br_if $iend (i32.ge_s (local.get $i) (local.get $rows)))
+      (local.set $ps (i32.add (local.get $src) (i32.shl (i32.mul (local.get $i) (local.get $stride)) (i32.const 3))))
+      (local.set $j (i32.const 0))
+      (block $jend (loop $jloop (br_if $jend (i32.ge_s (local.get $j) (local.get $cols)))
+        (f64.store (i32.add (local.get $dst) (i32.shl (i32.add (i32.mul (local.get $j) (local.get $rows)) (local.get $i)) (i32.const 3)))
+          (f64.load (i32.add (local.get $ps) (i32.shl (local.get $j) (i32.const 3)))))
+        (local.set $j (i32.add (local.get $j) (i32.const 1)))
+        (br $jloop)))
+      (local.set $i (i32.add (local.get $i) (i32.const 1)))
+      (br $iloop))))
   (func (export "dist2") (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32)
       (param $a2 i32) (param $b2 i32) (param $c i32)
     (call $kernel (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
