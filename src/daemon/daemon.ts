@@ -30,6 +30,7 @@ import { Scheduler, type RunRequest } from './scheduler.ts';
 import { filterOwned } from './shard.ts';
 import { blankStatus, type SeriesStatus } from './status.ts';
 import type { SeriesCycleResult } from './cycle.ts';
+import { dependencyWaves } from './runner.ts';
 
 export interface DaemonOptions extends Omit<RuntimeDeps, 'logger' | 'clock'> {
   loaded: LoadedConfig;
@@ -69,6 +70,10 @@ export class Daemon {
   #http: HttpServer | null = null;
   #watcher: ConfigWatcher | null = null;
   #bySeries = new Map<string, ResolvedSeries>();
+  /** Series in dependency order (inputs used at target time first). */
+  #ordered: ResolvedSeries[] = [];
+  /** series -> configured inputs of an earlier wave it uses at target time. */
+  #inputsOf = new Map<string, string[]>();
   #status = new Map<string, SeriesStatus>();
   #state: 'new' | 'running' | 'stopping' | 'stopped' = 'new';
   #stopped: Promise<void> | null = null;
@@ -120,8 +125,9 @@ export class Daemon {
       clock: this.#clock,
       ...(this.#o.cronDriver ? { driver: this.#o.cronDriver } : {}),
       onSkip: (_s, reason) => rt.metrics.skippedTotal.inc({ reason }),
+      waitFor: (series) => this.#inputsOf.get(series) ?? [],
     });
-    sched.setSchedules(rt.owned.map((s) => ({ series: s.name, cron: s.schedule.cron, timeZone: s.schedule.timeZone })));
+    sched.setSchedules(this.#scheduleList());
     this.#scheduler = sched;
     if (cfg.http.enabled) {
       this.#http = new HttpServer({
@@ -158,7 +164,7 @@ export class Daemon {
     );
     if (this.#o.initialRun ?? true) {
       const now = this.#clock.now();
-      for (const s of rt.owned) {
+      for (const s of this.#ordered) {
         const st = this.#status.get(s.name);
         const fresh = st?.lastSuccessAt !== null && st?.lastSuccessAt !== undefined && now - st.lastSuccessAt < s.settings.stepMs;
         if (!fresh) sched.trigger(s.name, 'manual');
@@ -266,7 +272,7 @@ export class Daemon {
     const removed = [...before.keys()].filter((n) => !owned.some((s) => s.name === n));
     const changed = owned.filter((s) => before.has(s.name) && JSON.stringify(before.get(s.name)) !== JSON.stringify(s)).map((s) => s.name);
     try {
-      this.#scheduler!.setSchedules(owned.map((s) => ({ series: s.name, cron: s.schedule.cron, timeZone: s.schedule.timeZone })));
+      this.#scheduler!.setSchedules(dependencyWaves(owned).flat().map((s) => ({ series: s.name, cron: s.schedule.cron, timeZone: s.schedule.timeZone })));
     } catch (err) {
       const e = describeError(err);
       this.#logger.error({ code: e.code, err: e.message }, 'config reload rejected: schedules invalid; the running config stays in effect');
@@ -329,6 +335,19 @@ export class Daemon {
       else Object.assign(st, base);
     }
     this.#bySeries = next;
+    // Inputs first: same-instant ticks fire in schedule order, and waitFor holds a dependent
+    // until its input's cycle of that tick is done.
+    const waves = dependencyWaves(list);
+    this.#ordered = waves.flat();
+    const waveOf = new Map<string, number>();
+    waves.forEach((w, i) => w.forEach((s) => waveOf.set(s.name, i)));
+    this.#inputsOf = new Map(
+      list.map((s) => [s.name, s.exogenous.filter((e) => e.atTarget && e.configured && (waveOf.get(e.name) ?? Infinity) < (waveOf.get(s.name) ?? 0)).map((e) => e.name)]),
+    );
+  }
+
+  #scheduleList() {
+    return this.#ordered.map((s) => ({ series: s.name, cron: s.schedule.cron, timeZone: s.schedule.timeZone }));
   }
 
   /** Last attempt / success / error and drift state from the state store, so a restart shows them at once. */

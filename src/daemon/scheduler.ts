@@ -38,6 +38,11 @@ export interface SchedulerOptions {
   clock?: Clock;
   /** Called when a tick or trigger is skipped (metrics). */
   onSkip?: (series: string, reason: SkipReason) => void;
+  /**
+   * Series whose queued or running cycle must finish before this one starts (inputs it uses at
+   * target time). Must not form cycles; the daemon passes only inputs of an earlier dependency wave.
+   */
+  waitFor?: (series: string) => readonly string[];
 }
 
 export interface StopResult {
@@ -182,6 +187,11 @@ export class Scheduler {
   }
 
   async #runQueued(series: string, reason: RunRequest['reason']): Promise<void> {
+    // Wait for inputs first, without holding a slot (holding one could starve the input itself).
+    for (const dep of this.#opts.waitFor?.(series) ?? []) {
+      const p = dep !== series ? this.#inFlight.get(dep) : undefined;
+      if (p) await p;
+    }
     const release = await this.#limiter.acquire();
     try {
       if (this.#stopping) return; // queued before shutdown, never started

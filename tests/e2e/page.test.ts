@@ -10,6 +10,11 @@ import { idFor, type ChartData } from '../../src/daemon/page.ts';
 import { blankStatus, type SeriesStatus } from '../../src/daemon/status.ts';
 import { captureLogger } from '../unit/daemon/helpers.ts';
 import { launchBrowser } from './browser.ts';
+import { Daemon } from '../../src/daemon/daemon.ts';
+import { ManualClock } from '../../src/daemon/clock.ts';
+import { clockCronDriver } from '../../src/daemon/cron-driver.ts';
+import { loadConfigFile } from '../../src/config/load.ts';
+import { DEMO_END_MS, demoFixture } from './demo-fixture.ts';
 
 const HOSTILE = '<img src=x onerror="window.__pwned=1">"quoted\'&amp;';
 const STEP = 3600_000;
@@ -119,5 +124,44 @@ describe('status page in Chromium', () => {
     expect(h2.startsWith(HOSTILE)).toBe(true);
     expect(consoleErrors).toEqual([]);
     await page.close();
+  });
+});
+
+describe('status page of a real daemon (demo config) in Chromium', () => {
+  it('charts the actuals, the latest forecast and its band that the daemon wrote', async () => {
+    const fx = demoFixture({ series: ['oskaveld-outdoor-temp', 'tarrow-hill'] });
+    const loaded = loadConfigFile(fx.config);
+    if (!loaded.ok) throw new Error('demo config invalid');
+    const clock = new ManualClock(DEMO_END_MS + 5 * 60_000);
+    const { logger } = captureLogger('warn');
+    const daemon = new Daemon({ loaded: loaded.value, logger, clock, cronDriver: clockCronDriver(clock), workers: 0, httpPort: 0, watchConfig: false });
+    try {
+      await daemon.start();
+      await daemon.flush(); // the first run: two series forecast, two without readings fail
+      const base2 = `http://127.0.0.1:${daemon.httpAddress!.port}`;
+      const page = await browser.context.newPage();
+      const errors: string[] = [];
+      page.on('pageerror', (e) => errors.push(String(e)));
+      await page.goto(`${base2}/`);
+      await page.waitForFunction(() => [...document.querySelectorAll('section.chart')].every((s) => s.hasAttribute('data-drawn')), null, { timeout: 20_000 });
+      const drawn = await page.evaluate(() =>
+        Object.fromEntries(
+          [...document.querySelectorAll('section.chart')].map((s) => {
+            const chart = (window as unknown as { Chart: { getChart(c: HTMLCanvasElement): { data: { datasets: Array<{ label: string; data: Array<{ y: number | null }> }> } } | undefined } }).Chart.getChart(s.querySelector('canvas')!);
+            return [s.getAttribute('data-series'), chart ? chart.data.datasets.map((d) => [d.label, d.data.filter((p) => p.y !== null).length]) : null];
+          }),
+        ),
+      );
+      // tarrow-hill: 72 hourly actuals before the origin, a 24-step forecast with its 10-90 % band.
+      expect(drawn['tarrow-hill']).toEqual([['actual', 72], ['band 0.1–0.9 (lower)', 24], ['band 0.1–0.9', 24], ['forecast', 24]]);
+      // A series without readings has a chart without data, and the table shows its error code.
+      expect(drawn['oskaveld-north']).toEqual([['actual', 0]]);
+      expect(await page.locator('table.series').innerText()).toContain('INPUT_STALE');
+      expect(errors).toEqual([]);
+      await page.close();
+    } finally {
+      await daemon.stop();
+      fx.cleanup();
+    }
   });
 });

@@ -198,6 +198,29 @@ describe('Scheduler with a fake clock', () => {
   });
 });
 
+describe('Scheduler input ordering', () => {
+  it('holds a series until the in-flight cycle of an input it uses at target time is done, without taking a slot', async () => {
+    const clock = new ManualClock(Date.UTC(2026, 2, 2, 10, 0, 30));
+    const { logger } = captureLogger();
+    const c = controllable();
+    const sched = new Scheduler({ runSeries: c.run, concurrency: 1, logger, driver: clockCronDriver(clock), clock, waitFor: (s) => (s === 'load' ? ['temp'] : []) });
+    // Inputs first in the schedule list: same-instant ticks fire in this order.
+    sched.setSchedules([{ series: 'temp', cron: '0 * * * *', timeZone: 'UTC' }, { series: 'load', cron: '0 * * * *', timeZone: 'UTC' }, { series: 'other', cron: '0 * * * *', timeZone: 'UTC' }]);
+    sched.start();
+    await clock.advance(3600_000);
+    expect(c.started).toEqual(['temp']);
+    c.finish('temp');
+    await settle();
+    // 'other' took the free slot first: 'load' only queued for a slot once temp was done.
+    expect(c.started).toEqual(['temp', 'other']);
+    c.finish('other');
+    await settle();
+    expect(c.started).toEqual(['temp', 'other', 'load']);
+    c.finish('load');
+    await sched.stop(100);
+  });
+});
+
 describe('node-cron driver', () => {
   afterEach(() => { vi.useRealTimers(); });
 
