@@ -10,10 +10,11 @@
  *
  *   npm run bench -- throughput                     N = 100 and 1000, 10 warm cycles each
  *   npm run bench -- throughput --series 1000 --cycles 10 --workers 2
+ *   npm run bench -- throughput --series 100 --cycles 3 --cpu-split   stage split in CPU ms (one thread)
  *
  * Target (issue 9): 1000 series per warm cycle in under 30 s on a 2-core machine, no growth.
  */
-import { mkdtempSync, rmSync, statSync, writeFileSync, existsSync } from 'node:fs';
+import { mkdtempSync, readFileSync, rmSync, statSync, writeFileSync, existsSync } from 'node:fs';
 import os from 'node:os';
 import path from 'node:path';
 import v8 from 'node:v8';
@@ -26,6 +27,8 @@ import { STAGES } from '../../src/daemon/timings.ts';
 import { EmbeddedStore } from '../../src/store/index.ts';
 import type { Reading } from '../../src/series/types.ts';
 import { systemClock, type Clock } from '../../src/daemon/clock.ts';
+import { runFitTask } from '../../src/daemon/fit-task.ts';
+import type { Fitter } from '../../src/daemon/ports.ts';
 
 const HOUR_MS = 3_600_000;
 /** Readings generated before the first cycle: window 8 w + longest lag 1 w + margin, rounded up. */
@@ -39,6 +42,20 @@ function arg(argv: string[], name: string, fallback: string): string {
   const i = argv.indexOf(`--${name}`);
   return i >= 0 && argv[i + 1] !== undefined ? argv[i + 1] : fallback;
 }
+
+/** CPU time (ms) of the main thread from /proc (Linux); null elsewhere. Fields 14/15: utime, stime in clock ticks. */
+function mainThreadCpuMs(): number | null {
+  try {
+    const stat = readFileSync(`/proc/self/task/${process.pid}/stat`, 'utf8');
+    const fields = stat.slice(stat.lastIndexOf(')') + 2).split(' ');
+    // fields[0] is field 3 (state); utime is field 14, stime field 15.
+    return ((Number(fields[11]) + Number(fields[12])) * 1000) / CLOCK_TICKS_PER_S;
+  } catch {
+    return null;
+  }
+}
+/** USER_HZ: 100 on Linux for every mainstream architecture (common practice; sysconf(_SC_CLK_TCK)). */
+const CLOCK_TICKS_PER_S = 100;
 
 /** mulberry32: small seeded PRNG so every run builds the same fleet. */
 function rng(seed: number): () => number {
@@ -135,6 +152,7 @@ function configText(names: string[], dir: string, concurrency: number): string {
 }
 
 const fmt = (v: number, d = 0) => v.toFixed(d);
+const medianOf = (xs: number[]) => [...xs].sort((a, b) => a - b)[Math.floor(xs.length / 2)];
 const mib = (b: number) => (b / 2 ** 20).toFixed(0);
 
 interface CycleRow {
@@ -142,11 +160,32 @@ interface CycleRow {
   summary: RunSummary;
   /** Process CPU time (all threads: main + fit workers) spent in the cycle, ms. */
   cpuMs: number;
+  /** CPU time of the main thread (stores, regularize, scoring, message passing), ms; NaN when unknown. */
+  mainCpuMs: number;
   rss: number;
   heapAfterGc: number;
 }
 
-async function benchFleet(n: number, cycles: number, workers: number, concurrency: number): Promise<void> {
+/** Process CPU time in ms (all threads). In the CPU-split mode everything runs on the main thread. */
+const cpuNowMs = () => {
+  const u = process.cpuUsage();
+  return (u.user + u.system) / 1000;
+};
+
+/** Inline fitter whose fit/predict times are CPU time (the CPU-split mode). */
+function cpuTimedFitter(): Fitter {
+  return {
+    kind: 'inline',
+    queued: 0,
+    async fitAndForecast(req) {
+      await new Promise((r) => setImmediate(r));
+      return runFitTask(req, cpuNowMs);
+    },
+    async stop() {},
+  };
+}
+
+async function benchFleet(n: number, cycles: number, workers: number, concurrency: number, cpuSplit: boolean): Promise<void> {
   const dir = mkdtempSync(path.join(os.tmpdir(), 'radcast-bench-'));
   try {
     gc();
@@ -162,15 +201,18 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
     if (!loaded.ok) throw new Error(`bench config rejected: ${JSON.stringify(loaded.issues.slice(0, 3))}`);
     const series = loaded.value.series;
     let nowMs = startMs + fleet.hours * HOUR_MS + 60_000; // one minute after the newest hour closed
-    // Real timers and durations; only "now" is pinned to the replayed hour.
-    const clock: Clock = { ...systemClock, now: () => nowMs };
+    // Real timers; "now" is pinned to the replayed hour. In the CPU-split mode stage durations are
+    // CPU time of the one thread that does all the work, so they hold on a busy machine too.
+    const clock: Clock = { ...systemClock, now: () => nowMs, ...(cpuSplit ? { monotonicMs: cpuNowMs } : {}) };
     const logger = pino({ level: 'warn' });
-    const rt = await openRuntime(loaded.value, { logger, clock, workers, store: seed });
+    const rt = await openRuntime(loaded.value, { logger, clock, workers, store: seed, ...(cpuSplit ? { fitter: cpuTimedFitter() } : {}) });
+    gc();
+    const heapOpen = process.memoryUsage().heapUsed;
     console.log(`\nload average before: ${os.loadavg().map((l) => l.toFixed(1)).join(' ')} (other processes compete for the cores when > 0.5)`);
     console.log(
       `N = ${n} series (+1 input-only temperature series), ${HISTORY_STEPS} h of readings loaded in ${fmt(loadMs)} ms; ` +
         `window ${series[0].settings.windowSteps} steps, ${series[0].samples} samples, K = 32, H = 24; ` +
-        `${workers} fit workers, ${concurrency} series in flight`,
+        (cpuSplit ? 'CPU-split mode: everything on the main thread, stage times are CPU ms' : `${workers} fit workers, ${concurrency} series in flight`),
     );
     const rows: CycleRow[] = [];
     for (let c = 0; c <= cycles; c++) {
@@ -179,8 +221,10 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
         nowMs += HOUR_MS;
       }
       const cpu0 = process.cpuUsage();
+      const main0 = mainThreadCpuMs();
       const summary = await runAll(rt.cycle, rt.owned, { concurrency, nowMs, clock });
       const cpu = process.cpuUsage(cpu0);
+      const main1 = mainThreadCpuMs();
       if (summary.failed + summary.stale > 0) {
         console.log(`  cycle ${c}: ${summary.failed} failed, ${summary.stale} stale: ${JSON.stringify(summary.byCode)}`);
         const first = summary.results.find((r) => !r.ok);
@@ -188,7 +232,7 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
       }
       gc();
       const mem = process.memoryUsage();
-      rows.push({ cycle: c === 0 ? 'cold' : `warm ${c}`, summary, cpuMs: (cpu.user + cpu.system) / 1000, rss: mem.rss, heapAfterGc: mem.heapUsed });
+      rows.push({ cycle: c === 0 ? 'cold' : `warm ${c}`, summary, cpuMs: (cpu.user + cpu.system) / 1000, mainCpuMs: main0 === null || main1 === null ? Number.NaN : main1 - main0, rss: mem.rss, heapAfterGc: mem.heapUsed });
     }
     // The fitted forecasters are what a series keeps between cycles; they live in the state file.
     const stored = rt.stateStore.loadModel(series[0].name)?.model as unknown as { scaler?: { featureNames?: string[] } } | undefined;
@@ -197,16 +241,17 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
     gc();
 
     console.log(
-      ['cycle', 'wall s', 'series/s', 'CPU s', ...STAGES.map((s) => `${s} ms/series`), 'pool ms/series', 'ok', 'RSS MiB', 'heap MiB'].join(' | '),
+      ['cycle', 'wall s', 'series/s', 'CPU s', 'main CPU s', ...STAGES.map((s) => `${s} ms/series`), 'pool ms/series', 'ok', 'RSS MiB', 'heap MiB'].join(' | '),
     );
     for (const r of rows) {
       const s = r.summary;
       const per = (ms: number) => fmt(ms / n, 1);
       console.log(
-        [r.cycle, fmt(s.wallMs / 1000, 2), fmt((n * 1000) / s.wallMs, 1), fmt(r.cpuMs / 1000, 1), ...STAGES.map((st) => per(s.timings[st])), per(s.poolOverheadMs), `${s.ok}/${n}`, mib(r.rss), mib(r.heapAfterGc)].join(' | '),
+        [r.cycle, fmt(s.wallMs / 1000, 2), fmt((n * 1000) / s.wallMs, 1), fmt(r.cpuMs / 1000, 1), fmt(r.mainCpuMs / 1000, 1), ...STAGES.map((st) => per(s.timings[st])), per(s.poolOverheadMs), `${s.ok}/${n}`, mib(r.rss), mib(r.heapAfterGc)].join(' | '),
       );
     }
     const warm = rows.slice(1);
+    const cores = Math.max(1, workers);
     if (warm.length) {
       const walls = warm.map((r) => r.summary.wallMs).sort((a, b) => a - b);
       const median = walls[Math.floor(walls.length / 2)];
@@ -220,13 +265,14 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
       const all = totals.reduce((a, b) => a + b, 0);
       console.log(
         `warm median: ${fmt(median / 1000, 2)} s per cycle, ${fmt((n * 1000) / median, 1)} series/s, ` +
-          `${fmt((n * 1000) / median / workers, 1)} series/s per core, ${fmt((median * workers) / n, 1)} core-ms per series`,
+          `${fmt((n * 1000) / median / cores, 1)} series/s per core, ${fmt((median * cores) / n, 1)} core-ms per series`,
       );
       const cpus = warm.map((r) => r.cpuMs).sort((a, b) => a - b);
       const cpuMedian = cpus[Math.floor(cpus.length / 2)];
       console.log(
         `warm median CPU: ${fmt(cpuMedian / 1000, 2)} s per cycle = ${fmt(cpuMedian / n, 1)} CPU-ms per series ` +
-          `-> ${fmt((1000 * 1000) / cpuMedian, 1)} series/s per core; on ${workers} idle cores 1000 series would take ~${fmt((cpuMedian / n) * 1000 / workers / 1000, 1)} s`,
+          `(main thread ${fmt(medianOf(warm.map((r) => r.mainCpuMs)) / n, 1)} of them) -> ${fmt((n * 1000) / cpuMedian, 1)} series per CPU-second; ` +
+          `on ${cores} idle core(s) 1000 series would take ~${fmt(((cpuMedian / n) * 1000) / cores / 1000, 1)} s`,
       );
       console.log(`work split (warm cycles): ${STAGES.map((st, i) => `${st} ${fmt((100 * totals[i]) / all, 1)}%`).join(', ')}`);
       console.log(
@@ -235,7 +281,8 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
           `RSS ${mib(rssFirst)} -> ${mib(rssLast)} MiB`,
       );
       console.log(
-        `held per series between cycles: main heap ${fmt(Math.max(0, heapLast - heapBase) / n, 0)} B (after close: ${fmt(Math.max(0, process.memoryUsage().heapUsed - heapBase) / n, 0)} B); ` +
+        `held per series between cycles: main heap ${fmt((heapLast - heapOpen) / n, 0)} B retained by cycles ` +
+          `(+ ${fmt((heapOpen - heapBase) / n, 0)} B for the fleet's readings generator, resolved config and runtime); ` +
           `state on disk ${fmt(stateBytes / n, 0)} B (model, residuals, ledger, drift state)` +
           (nFeatures ? `; the model has ${nFeatures} features` : ''),
       );
@@ -252,5 +299,10 @@ export async function run(argv: string[]): Promise<void> {
   const cycles = Number(arg(argv, 'cycles', '10'));
   const workers = Number(arg(argv, 'workers', String(os.availableParallelism())));
   const concurrency = Number(arg(argv, 'concurrency', String(Math.max(2, 2 * workers))));
-  for (const n of sizes) await benchFleet(n, cycles, workers, concurrency);
+  const cpuSplit = argv.includes('--cpu-split');
+  for (const n of sizes) {
+    // One thread does everything: per-core figures are per that one core.
+    if (cpuSplit) await benchFleet(n, cycles, 0, 1, true);
+    else await benchFleet(n, cycles, workers, concurrency, false);
+  }
 }

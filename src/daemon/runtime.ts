@@ -30,6 +30,8 @@ export interface RuntimeDeps {
   clock?: Clock;
   /** Worker threads for fits; 0 = inline. Default: config daemon.concurrency. */
   workers?: number;
+  /** Fitter to use instead of the pool / inline one (the throughput benchmark's CPU-time split). */
+  fitter?: Fitter;
   /** Series store to use instead of the configured one (tests). */
   store?: SeriesStore;
   /** State store to use instead of config state.path (tests). */
@@ -90,7 +92,7 @@ export async function openRuntime(loaded: LoadedConfig, deps: RuntimeDeps): Prom
   }
   const state = new StateAdapter(stateStore, logger);
   const workers = deps.workers ?? loaded.config.daemon.concurrency;
-  const fitter: Fitter = workers > 0 ? new PoolFitter({ threads: workers }) : new InlineFitter();
+  const fitter: Fitter = deps.fitter ?? (workers > 0 ? new PoolFitter({ threads: workers }) : new InlineFitter());
   const hooked = loaded.series.filter((s) => s.drift.enabled && s.drift.webhook && secrets.webhookUrl(s.name));
   const timeouts = new Map(hooked.map((s) => [s.name, s.drift.webhook!.timeoutMs]));
   const notifier = hooked.length
