@@ -7,32 +7,13 @@
  */
 import type { Logger } from 'pino';
 import type { ResolvedSeries } from '../config/resolve.ts';
-import { assessDrift, DRIFT_DEFAULTS, type DriftNotice, type DriftSettings } from '../drift/index.ts';
+import { assessDrift, type DriftNotice, type DriftSettings } from '../drift/index.ts';
 import type { DriftAssessment, DriftAssessor, DriftInput } from './ports.ts';
 import type { DriftBaseline } from './state-adapter.ts';
 
-const DAY_MS = 86_400_000;
-
-/**
- * DriftSettings of a series from its resolved config. Config keys map one to one where the drift
- * layer has them (thresholds, novelty, staleAfter); `delta` is the detector's allowance, `dwell`
- * becomes steps, and the batch (time scale of the statistic) is one day of steps, as the drift
- * layer's defaults assume for hourly series.
- */
+/** DriftSettings of a series: the config resolves every drift key into them (src/config/resolve.ts). */
 export function driftSettingsFor(r: ResolvedSeries): DriftSettings {
-  const step = r.settings.stepMs;
-  const d = r.drift;
-  return {
-    ...DRIFT_DEFAULTS,
-    allowance: d.delta,
-    watchThreshold: d.watchThreshold,
-    alertThreshold: d.alertThreshold,
-    batchSteps: Math.max(1, Math.round(DAY_MS / step)),
-    dwellSteps: Math.max(0, Math.round(d.dwellMs / step)),
-    novelty: { activation: d.novelty.activation, share: d.novelty.share, windowSteps: d.novelty.windowSteps },
-    staleAfterMs: d.staleAfterMs,
-    repeatAlertMs: d.webhook ? d.webhook.resendEveryMs : DRIFT_DEFAULTS.repeatAlertMs,
-  };
+  return r.drift.settings;
 }
 
 export interface BaselineSource {
