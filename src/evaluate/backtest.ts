@@ -56,6 +56,11 @@ export interface BacktestOptions {
    * used, i.e. a perfect forecast of the input; the result says which (exoAtTarget).
    */
   exoSettings?: Record<string, ForecastSettings>;
+  /**
+   * Forecasts of those inputs already made by their own backtest (origin time ms -> H values), e.g.
+   * from `modelForecasts(result)`; origins found here are not forecast again.
+   */
+  exoForecasts?: Record<string, Record<string, number[]>>;
 }
 
 export interface MethodResult {
@@ -192,7 +197,10 @@ export async function backtest(target: RegularSeries, exo: Record<string, Regula
     if (!spec.atTarget) continue;
     const es = opts.exoSettings?.[spec.name];
     const usable = es !== undefined && es.features.exogenous.length === 0 && es.features.horizon >= H && es.stepMs === settings.stepMs;
-    if (usable) exoModels.push({ name: spec.name, settings: { ...es, features: { ...es.features, horizon: H } } });
+    if (usable) {
+      const known = opts.exoForecasts?.[spec.name];
+      exoModels.push({ name: spec.name, settings: { ...es, features: { ...es.features, horizon: H } }, ...(known ? { known } : {}) });
+    }
     exoAtTarget[spec.name] = usable ? 'forecast' : 'observed';
   }
   const tasks: ChainTask[] = [];
@@ -336,6 +344,13 @@ export async function backtest(target: RegularSeries, exo: Record<string, Regula
     chainLength,
     elapsedMs: now() - t0,
   };
+}
+
+/** The model's forecast at every scored origin (origin time ms -> H values), for reuse as an input's forecast. */
+export function modelForecasts(r: BacktestResult): Record<string, number[]> {
+  const out: Record<string, number[]> = {};
+  for (const d of r.details) out[String(d.originMs)] = d.forecasts[MODEL_METHOD];
+  return out;
 }
 
 /** Metrics that scripts compare, for one method (the `--json` shape). */

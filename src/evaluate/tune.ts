@@ -62,7 +62,7 @@ export interface TuneOptions {
    * another in the calling thread. Default: see defaultTuneParallelism.
    */
   threads?: number;
-  /** Worker threads of each backtest's origins when threads is 0 (default: one per core). */
+  /** Worker threads of each backtest's origins when threads is 0 (default: one per core when threads was left to the default, else 0). */
   originWorkers?: number;
   /** Seed of the start order (the fit seed is set in the candidates, see buildCandidates). */
   seed?: number;
@@ -290,7 +290,8 @@ export async function tune(target: RegularSeries, exo: Record<string, RegularSer
   }
   const par = defaultTuneParallelism(runnable.length);
   const threads = Math.max(0, Math.floor(opts.threads ?? par.threads));
-  const originWorkers = threads > 0 ? 0 : Math.max(0, Math.floor(opts.originWorkers ?? (opts.threads === 0 ? defaultTuneParallelism(1).originWorkers : par.originWorkers)));
+  // threads 0 given by the caller: everything in this thread unless originWorkers says otherwise.
+  const originWorkers = threads > 0 ? 0 : Math.max(0, Math.floor(opts.originWorkers ?? (opts.threads === 0 ? 0 : par.originWorkers)));
   const order = shuffled(runnable, seed);
   const perCandidate = plan.origins.length;
   const originsTotal = perCandidate * order.length;
