@@ -4,13 +4,41 @@
  * and that text from data and config cannot inject markup or script.
  */
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
+import { mkdtempSync, readFileSync, rmSync, writeFileSync, existsSync } from 'node:fs';
+import { execFile } from 'node:child_process';
+import { promisify } from 'node:util';
+import { fileURLToPath } from 'node:url';
 import { tmpdir } from 'node:os';
 import path from 'node:path';
 import { chromium, type BrowserContext } from 'playwright-core';
 import { backtest, type BacktestResult } from '../../src/evaluate/backtest.ts';
 import { renderBacktestReport } from '../../src/evaluate/report.ts';
 import { hourlySettings, syntheticHourly } from '../unit/forecast/fixtures.ts';
+
+const root = path.resolve(path.dirname(fileURLToPath(import.meta.url)), '../..');
+const run = promisify(execFile);
+
+async function inkedCanvases(file: string): Promise<{ drawn: number; inked: Array<{ n: number; total: number }>; errors: string[] }> {
+  const page = await context.newPage();
+  const errors: string[] = [];
+  page.on('pageerror', (e) => errors.push(e.message));
+  page.on('console', (m) => {
+    if (m.type() === 'error' || m.type() === 'warning') errors.push(m.text());
+  });
+  await page.goto(`file://${file}`);
+  await page.waitForFunction(() => typeof (window as unknown as { radcastChartsDrawn?: number }).radcastChartsDrawn === 'number');
+  const out = await page.evaluate(() => ({
+    drawn: (window as unknown as { radcastChartsDrawn: number }).radcastChartsDrawn,
+    inked: [...document.querySelectorAll('canvas')].map((c) => {
+      const px = c.getContext('2d')!.getImageData(0, 0, c.width, c.height).data;
+      let n = 0;
+      for (let i = 3; i < px.length; i += 4) if (px[i] > 0) n++;
+      return { n, total: c.width * c.height };
+    }),
+  }));
+  await page.close();
+  return { ...out, errors };
+}
 
 const HOSTILE = '<img src=x onerror="window.__pwned=1"></script><script>window.__pwned=2</script>&amp;';
 
@@ -86,5 +114,48 @@ describe('backtest report in headless Chromium', () => {
     expect(info.heading).toBe(HOSTILE);
     expect(info.modelRow).toBe('RBF network');
     await page.close();
+  });
+
+  it('radcast backtest --json --report from the embedded store', { timeout: 300_000 }, async () => {
+    const db = path.join(dir, 'cli.db');
+    const cfg = path.join(dir, 'cli.yaml');
+    writeFileSync(
+      cfg,
+      [
+        'store: { kind: embedded, embedded: { path: cli.db } }',
+        'state: { path: cli-state.db }',
+        'defaults: { step: 1h, timeZone: Europe/Berlin, window: 3w, centres: 8, fit: { restarts: 1 }, backtest: { every: 1d, span: 3d } }',
+        'series:',
+        '  - name: oskaveld-outdoor-temp',
+        '    calendar: { dayOfWeek: false }',
+        '',
+      ].join('\n'),
+    );
+    const bin = path.join(root, 'bin/radcast.mjs');
+    await run(process.execPath, [bin, 'import', path.join(root, 'demo-data/oskaveld-outdoor-temp.csv'), '--series', 'oskaveld-outdoor-temp', '--config', cfg], { cwd: dir });
+    expect(existsSync(db)).toBe(true);
+    const report = path.join(dir, 'cli-report.html');
+    const { stdout, stderr } = await run(process.execPath, [bin, 'backtest', '--config', cfg, '--json', '--report', report, '--workers', '0'], { cwd: dir });
+    const doc = JSON.parse(stdout) as Record<string, any>;
+    expect(doc.series).toBe('oskaveld-outdoor-temp');
+    expect(doc.step).toBe('1h');
+    expect(doc.season).toBe(24);
+    expect(doc.horizon).toBe(24);
+    expect(doc.origins).toBe(3);
+    for (const k of ['mae', 'rmse', 'mase', 'bias', 'coverage']) expect(Number.isFinite(doc.model[k])).toBe(true);
+    expect(Object.keys(doc.baselines).sort()).toEqual(['ridge-ar', 'seasonal-naive-daily', 'seasonal-naive-weekly']);
+    expect(stderr).toContain('wrote the backtest report');
+    // Not a terminal: no progress bar drawn into the captured stderr.
+    expect(stderr).not.toMatch(/origins, .* left/);
+    const page = await inkedCanvases(report);
+    expect(page.errors).toEqual([]);
+    expect(page.drawn).toBe(5);
+    for (const c of page.inked) expect(c.n).toBeGreaterThan(0.01 * c.total);
+    expect(readFileSync(report, 'utf8')).toContain('oskaveld-outdoor-temp');
+    // The table form of the same run.
+    const table = await run(process.execPath, [bin, 'backtest', '--config', cfg, '--workers', '0', '--span', '2d'], { cwd: dir });
+    expect(table.stdout).toMatch(/^oskaveld-outdoor-temp: 2 origins every 1d/);
+    expect(table.stdout).toMatch(/\n  rbf +\d/);
+    expect(table.stdout).toContain('MASE by lead');
   });
 });
