@@ -6,7 +6,7 @@
 import { describe, expect, it } from 'vitest';
 import { parseConfigText } from '../../../src/config/load.ts';
 import { buildCandidates, gridFor, tunedKeys, tuneSnippet, yamlInline } from '../../../src/evaluate/tune-grid.ts';
-import { formatTuneTable, pairedDifference, rankCandidates, shuffled, tune, NOISE_SE_MULTIPLE } from '../../../src/evaluate/tune.ts';
+import { formatTuneTable, pairedDifference, rankCandidates, shuffled, tune, NOISE_SE_MULTIPLE, type TuneProgress } from '../../../src/evaluate/tune.ts';
 import type { CandidateScore } from '../../../src/evaluate/tune-task.ts';
 import { knownRbfConfig, knownRbfSeries } from './tune-fixtures.ts';
 
@@ -151,6 +151,29 @@ describe('determinism, threads and the budget', () => {
     // The seeded order decides which two ran.
     expect(finished).toEqual(shuffled(candidates, 5).slice(0, 2).map((c) => c.id));
     expect(formatTuneTable(r)).toMatch(/Budget: stopped .* 2 not run/);
+  });
+});
+
+describe('progress', () => {
+  it('reports origins done over all combinations and estimates the time left at the rate so far', async () => {
+    const loaded = load(knownRbfConfig({ tune: '{ windows: [200], centres: [2, 4], widthModes: [shared] }', backtest: '{ every: 8, span: 40 }' }));
+    const { candidates } = buildCandidates(loaded.config, 0, gridFor(loaded.config.series[0]), { seed: 5 });
+    let clock = 0;
+    const events: TuneProgress[] = [];
+    const r = await tune(data.target, { drive: data.drive }, candidates, {
+      spanSteps: 40,
+      everySteps: 8,
+      threads: 0,
+      originWorkers: 0,
+      now: () => (clock += 1000),
+      onProgress: (p) => events.push(p),
+    });
+    const total = r.origins * 2;
+    expect(events.every((e) => e.originsTotal === total && e.candidatesTotal === 2 && e.budgetLeftMs === null)).toBe(true);
+    expect(events[0]).toMatchObject({ originsDone: 0, etaMs: null });
+    expect(events.at(-1)).toMatchObject({ originsDone: total, candidatesDone: 2, running: 0, etaMs: 0 });
+    for (let i = 1; i < events.length; i++) expect(events[i].originsDone).toBeGreaterThanOrEqual(events[i - 1].originsDone);
+    for (const e of events.filter((x) => x.originsDone > 0)) expect(e.etaMs).toBeCloseTo((e.elapsedMs / e.originsDone) * (total - e.originsDone), 6);
   });
 });
 
