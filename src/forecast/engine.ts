@@ -193,7 +193,11 @@ function fitOptions(settings: ForecastSettings, chosen: ChosenSettings, warm?: R
   return o;
 }
 
-/** Validation split of a sample set: training rows end H steps before the first validation origin. */
+/**
+ * Validation split of a sample set: training rows end H steps before the first validation origin,
+ * so no training target lies after it. The feature scaler is the one of the whole window (input
+ * means and spreads only; no target of the tail enters the fit).
+ */
 function splitTail(samples: SampleSet, horizon: number, fraction: number): { nTrain: number; vFrom: number } | null {
   const n = samples.x.rows;
   const nVal = Math.floor(n * fraction);
