@@ -44,3 +44,8 @@ export default function fit(req) {
     };
   }
 }
+
+/** Returns the request unchanged: the message round trip alone, for the pool benchmark. */
+export function echo(req) {
+  return { ok: true, result: req };
+}

@@ -125,8 +125,23 @@ export class DaemonMetrics {
       labelNames: ['series'],
       ...reg,
     });
-    this.poolQueue = new client.Gauge({ name: 'radcast_fit_pool_queue', help: 'Fit tasks waiting for a worker thread', ...reg });
+    const metrics = this;
+    this.poolQueue = new client.Gauge({
+      name: 'radcast_fit_pool_queue',
+      help: 'Fit tasks waiting for a worker thread',
+      ...reg,
+      collect() {
+        this.set(metrics.#poolQueued());
+      },
+    });
     if (opts.defaultMetrics !== false) client.collectDefaultMetrics({ register: registry, prefix: 'radcast_' });
+  }
+
+  #poolQueued: () => number = () => 0;
+
+  /** Where radcast_fit_pool_queue reads the queue length at scrape time. */
+  bindPoolQueue(fn: () => number): void {
+    this.#poolQueued = fn;
   }
 
   /** Record a finished series cycle. */

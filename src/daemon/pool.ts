@@ -108,6 +108,12 @@ export class PoolFitter implements Fitter {
     throw new WorkerTaskError(reply.error);
   }
 
+  /** Sends `payload` to a worker and back unchanged: the cost of the messages alone (benchmark). */
+  async echo<T>(payload: T): Promise<T> {
+    const reply = (await this.#pool.run(payload, { name: 'echo' })) as { ok: true; result: T };
+    return reply.result;
+  }
+
   async stop(): Promise<void> {
     await this.#pool.close({ force: false });
   }

@@ -114,6 +114,7 @@ export async function openRuntime(loaded: LoadedConfig, deps: RuntimeDeps): Prom
       notifier.kick();
     },
   });
+  metrics.bindPoolQueue(() => fitter.queued);
   const cycle = new SeriesCycle({ store, state, fitter, logger, clock, metrics, drift });
   const shard = deps.shard ?? ALL_SERIES;
   const owned = filterOwned(shard, loaded.series, (s) => s.name);

@@ -65,6 +65,7 @@ describe('HTTP endpoints', () => {
     metrics.recordCycle({ series: 'tarrow-hill', ok: false, errorCode: 'TOO_LITTLE_HISTORY', finishedAtMs: 1_700_000_000_000, timings: emptyTimings(), totalMs: 3 });
     metrics.recordDrift('oskaveld-north', 'alert', 12.5, 0.1, 1.4);
     metrics.writeRetriesTotal.inc({ store: 'embedded', kind: 'forecast' });
+    metrics.bindPoolQueue(() => 3);
     const { base } = await startWith({}, metrics);
     const r = await fetch(`${base}/metrics`);
     expect(r.status).toBe(200);
@@ -75,6 +76,7 @@ describe('HTTP endpoints', () => {
     expect(text).toContain('radcast_drift_state{series="oskaveld-north"} 2');
     expect(text).toContain('radcast_store_write_retries_total{store="embedded",kind="forecast"} 1');
     expect(text).toMatch(/radcast_fit_duration_seconds_count 1/);
+    expect(text).toContain('radcast_fit_pool_queue 3');
     expect(text).toMatch(/radcast_cycle_duration_seconds_count\{outcome="failed"\} 1/);
     expect(text).toMatch(/radcast_cycle_stage_duration_seconds_sum\{stage="fit"\} 0\.012/);
   });
