@@ -56,15 +56,26 @@ export function nodeCronDriver(): CronDriver {
   };
 }
 
+/** Wall-clock fields of an instant in a time zone, as one comparable string. */
+function wallClock(fmt: Intl.DateTimeFormat, ms: number): string {
+  return fmt.format(new Date(ms));
+}
+
 /**
  * Schedules on an injected Clock: a timer at every minute (or second, for 6-field expressions)
- * boundary asks node-cron's matcher whether the expression matches that instant.
+ * boundary asks node-cron's matcher whether the expression matches that instant. On the day a
+ * wall-clock hour repeats (daylight saving ends), a matching local time fires once, at its second
+ * occurrence, as node-cron itself does (tested side by side in tests/unit/daemon/scheduler.test.ts);
+ * a local time that does not exist (daylight saving starts) does not fire.
  */
 export function clockCronDriver(clock: Clock): CronDriver {
   return {
     validate: validateCron,
     add(job) {
       const matcher = cron.createTask(job.expr, () => undefined, { timezone: job.timeZone, name: job.name });
+      const fmt = new Intl.DateTimeFormat('en-GB', { timeZone: job.timeZone, hourCycle: 'h23', year: 'numeric', month: '2-digit', day: '2-digit', hour: '2-digit', minute: '2-digit', second: '2-digit' });
+      // DST shifts are one hour in the zones radcast is used in (a 30-minute shift, as on Lord Howe Island, is not handled).
+      const repeatsLater = (ms: number) => wallClock(fmt, ms) === wallClock(fmt, ms + 3_600_000);
       const gridMs = job.expr.trim().split(/\s+/).length >= 6 ? 1000 : 60_000;
       let stopped = false;
       let handle = arm();
@@ -74,7 +85,7 @@ export function clockCronDriver(clock: Clock): CronDriver {
         return clock.setTimeout(() => {
           if (stopped) return;
           const at = new Date(next);
-          if (matcher.match(at)) job.onTick(at);
+          if (matcher.match(at) && !repeatsLater(next)) job.onTick(at);
           handle = arm();
         }, next - now);
       }

@@ -81,6 +81,35 @@ describe('HTTP endpoints', () => {
     expect(text).toMatch(/radcast_cycle_stage_duration_seconds_sum\{stage="fit"\} 0\.012/);
   });
 
+  it('/metrics follows the Prometheus text exposition format 0.0.4, also for a series name with quotes, backslashes and a newline', async () => {
+    // Grammar from the Prometheus documentation, "Exposition formats" (text format 0.0.4):
+    // metric and label names, label values with \\, \" and \n escaped, a float value (or NaN/+Inf/-Inf).
+    const metrics = new DaemonMetrics();
+    const nasty = 'sub "7"\\north\nline';
+    metrics.recordCycle({ series: nasty, ok: false, errorCode: 'INPUT_STALE', finishedAtMs: 1_700_000_000_000, timings: emptyTimings(), totalMs: 1 });
+    metrics.recordDrift(nasty, 'stale', 0, 0, Number.NaN);
+    const { base } = await startWith({}, metrics);
+    const text = await (await fetch(`${base}/metrics`)).text();
+    const NAME = '[a-zA-Z_:][a-zA-Z0-9_:]*';
+    const LABEL = `[a-zA-Z_][a-zA-Z0-9_]*="(?:[^"\\\\\\n]|\\\\[\\\\"n])*"`;
+    const sample = new RegExp(`^${NAME}(\\{${LABEL}(,${LABEL})*,?\\})? (-?[0-9.]+(e[-+]?[0-9]+)?|NaN|[+-]Inf)( -?[0-9]+)?$`);
+    const typed = new Set<string>();
+    for (const line of text.split('\n')) {
+      if (line === '') continue;
+      if (line.startsWith('# HELP ')) continue;
+      const t = /^# TYPE (\S+) (counter|gauge|histogram|summary|untyped)$/.exec(line);
+      if (t) {
+        typed.add(t[1]);
+        continue;
+      }
+      expect(line, line).toMatch(sample);
+      const name = line.split(/[{ ]/)[0].replace(/_(bucket|sum|count)$/, '');
+      expect(typed.has(name) || typed.has(line.split(/[{ ]/)[0]), `no # TYPE before ${line}`).toBe(true);
+    }
+    expect(text).toContain('radcast_series_failures_total{series="sub \\"7\\"\\\\north\\nline",code="INPUT_STALE"} 1');
+    expect(text).toContain('radcast_process_cpu_seconds_total'); // default process metrics, prefixed
+  });
+
   it('/ escapes series names and error text from the store and config', async () => {
     const { base } = await startWith({});
     const r = await fetch(`${base}/`);

@@ -198,6 +198,49 @@ describe('Scheduler with a fake clock', () => {
   });
 });
 
+describe('schedules in the series time zone across daylight-saving changes', () => {
+  // Europe/Berlin: summer time starts 2026-03-29 at 01:00 UTC and ends 2026-10-25 at 01:00 UTC
+  // (EU rule: last Sunday of March / October, Directive 2000/84/EC; as in the IANA tz database
+  // shipped with Node's Intl). The local days are 23 and 25 hours long. On the 25-hour day the
+  // wall-clock hour 02:00-03:00 occurs twice; node-cron runs a matching local time once, at the
+  // second occurrence (observed behaviour of node-cron 4.6, checked here for both drivers).
+  const cases = [
+    { day: 'spring-forward', fromUtc: Date.UTC(2026, 2, 28, 23, 0, 0), hours: 23, hourly: 23, night: [] as string[], skippedHour: null as number | null },
+    { day: 'fall-back', fromUtc: Date.UTC(2026, 9, 24, 22, 0, 0), hours: 25, hourly: 24, night: ['2026-10-25T01:30:00.000Z'], skippedHour: 2 },
+  ];
+  afterEach(() => { vi.useRealTimers(); });
+  for (const c of cases) {
+    const expectedHours = Array.from({ length: c.hours }, (_, i) => i).filter((i) => i !== c.skippedHour);
+    it(`${c.day} day: the fake-clock driver fires the hourly and the 02:30 refit like node-cron`, async () => {
+      const clock = new ManualClock(c.fromUtc - 30_000);
+      const { logger } = captureLogger();
+      const at: Record<string, number[]> = { hourly: [], night: [] };
+      const sched = new Scheduler({ runSeries: async (s) => { at[s].push(clock.now()); }, concurrency: 2, logger, driver: clockCronDriver(clock), clock });
+      sched.setSchedules([{ series: 'hourly', cron: '0 * * * *', timeZone: 'Europe/Berlin' }, { series: 'night', cron: '30 2 * * *', timeZone: 'Europe/Berlin' }]);
+      sched.start();
+      await clock.advance(c.hours * 3600_000); // the whole local day, midnight to midnight
+      await sched.flush();
+      expect(at.hourly.map((t) => (t - c.fromUtc) / 3600_000)).toEqual(expectedHours);
+      expect(at.hourly).toHaveLength(c.hourly);
+      expect(at.night.map((t) => new Date(t).toISOString())).toEqual(c.night);
+      await sched.stop(10);
+    });
+    it(`${c.day} day: the node-cron driver (fake timers) does the same`, async () => {
+      vi.useFakeTimers({ now: c.fromUtc - 30_000, toFake: ['setTimeout', 'clearTimeout', 'Date', 'setInterval', 'clearInterval'] });
+      const d = nodeCronDriver();
+      const hourly: number[] = [];
+      const night: string[] = [];
+      const a = d.add({ name: 'h', expr: '0 * * * *', timeZone: 'Europe/Berlin', onTick: (x) => hourly.push(x.getTime()) });
+      const b = d.add({ name: 'n', expr: '30 2 * * *', timeZone: 'Europe/Berlin', onTick: (x) => night.push(x.toISOString()) });
+      await vi.advanceTimersByTimeAsync(c.hours * 3600_000);
+      a.stop();
+      b.stop();
+      expect(hourly.map((t) => (t - c.fromUtc) / 3600_000)).toEqual(expectedHours);
+      expect(night).toEqual(c.night);
+    });
+  }
+});
+
 describe('Scheduler input ordering', () => {
   it('holds a series until the in-flight cycle of an input it uses at target time is done, without taking a slot', async () => {
     const clock = new ManualClock(Date.UTC(2026, 2, 2, 10, 0, 30));
