@@ -208,16 +208,16 @@ export class SeriesCycle {
 
     // ---- read ----
     const { readings, exoReadings } = await timed('read', async () => {
-      const read = (sel: SourceSelector) => {
-        const key = JSON.stringify([sel, startMs, endMs]);
+      // Only inputs go through the run's cache: they are shared by many series, a target is read once.
+      const read = (sel: SourceSelector, shared: boolean) => {
         const go = () => store.readReadings(sel, startMs, endMs);
-        return cache ? cache.get(key, go) : go();
+        return cache && shared ? cache.get(JSON.stringify([sel, startMs, endMs]), go) : go();
       };
-      const readings = await read(r.source);
+      const readings = await read(r.source, false);
       const exoReadings: Record<string, Reading[]> = {};
       for (const e of r.exogenous) {
         // For inputs used at target time the readings reach H steps further (where readings exist).
-        exoReadings[e.name] = await read(e.source);
+        exoReadings[e.name] = await read(e.source, true);
       }
       return { readings, exoReadings };
     });
@@ -244,6 +244,7 @@ export class SeriesCycle {
     const stale = lastReadingAt === null || nowMs - lastReadingAt > r.drift.staleAfterMs;
     let scoredErrors: MaturedError[] = [];
     let novelty: number | null = null;
+    let recentNovelty: Array<{ t: number; activation: number }> = [];
     let baselineMase: number | null = null;
     let staleError: DaemonError | null = null;
 
@@ -269,7 +270,7 @@ export class SeriesCycle {
       const wall0 = this.#clock.monotonicMs();
       let fr;
       try {
-        fr = await fitter.fitAndForecast({ settings: s, target, exo, originIndex, warm, holdout: poolEmpty }, signal);
+        fr = await fitter.fitAndForecast({ settings: s, target, exo, originIndex, warm, holdout: poolEmpty, noveltySteps: r.drift.enabled ? r.drift.settings.novelty.windowSteps : 0 }, signal);
       } catch (err) {
         throw new StageError('fit', err);
       }
@@ -279,6 +280,7 @@ export class SeriesCycle {
       result.poolOverheadMs = Math.max(0, wall - fr.fitMs - fr.predictMs);
       result.warmStarted = fr.fitted.warmStarted;
       novelty = fr.forecast.novelty;
+      recentNovelty = fr.recentNovelty ?? [];
       baselineMase = baselineFromHoldout(fr.holdout, target, originIndex, s.windowSteps, s.features.seasonSteps);
 
       // Seed rows for an empty pool: the fit's hold-out residuals (out of sample, before the origin).
@@ -333,7 +335,7 @@ export class SeriesCycle {
     if (assessor && r.drift.enabled) {
       await timed('drift', async () => {
         const previous = await state.getDriftState(r.name);
-        const a = await assessor.assess({ series: r.name, resolved: r, nowMs, lastReadingAt, matured: scoredErrors, novelty, baselineMase, previous });
+        const a = await assessor.assess({ series: r.name, resolved: r, nowMs, lastReadingAt, matured: scoredErrors, novelty, recentNovelty, baselineMase, previous });
         await state.putDriftState(r.name, a.next, nowMs);
         result.drift = a;
         if (a.transition) logger.info({ series: r.name, from: a.transition.from, to: a.transition.to, statistic: a.statistic, recentMase: a.recentMase, baselineMase: a.baselineMase, noveltyShare: a.noveltyShare }, 'drift state changed');

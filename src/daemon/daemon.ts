@@ -330,7 +330,7 @@ export class Daemon {
     for (const name of this.#status.keys()) if (!next.has(name)) this.#status.delete(name);
     for (const s of list) {
       const st = this.#status.get(s.name);
-      const base = { series: s.name, timeZone: s.settings.features.timeZone, stepMs: s.settings.stepMs, schedule: s.schedule.cron };
+      const base = { series: s.name, timeZone: s.settings.features.timeZone, stepMs: s.settings.stepMs, schedule: s.schedule.cron, driftEnabled: s.drift.enabled };
       if (!st) this.#status.set(s.name, blankStatus(base));
       else Object.assign(st, base);
     }

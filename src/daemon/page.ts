@@ -64,17 +64,17 @@ export function renderPage(statuses: SeriesStatus[], opts: PageOptions): string 
   const slice = shown.slice((page - 1) * PAGE_SIZE, page * PAGE_SIZE);
   const counts: Record<string, number> = { ok: 0, watch: 0, alert: 0, stale: 0, none: 0, failing: 0 };
   for (const s of statuses) {
-    counts[s.driftState ?? 'none']++;
+    if (s.driftEnabled) counts[s.driftState ?? 'none']++;
     if (s.lastError) counts.failing++;
   }
 
   const rows = slice
     .map((s) => {
-      const state = s.driftState ?? 'none';
+      const state = s.driftEnabled ? (s.driftState ?? 'none') : 'off';
       const err = s.lastError ? `<span class="err" title="${escapeHtml(s.lastError.message)}">${escapeHtml(s.lastError.code)}</span>` : '';
       return `<tr>
 <td><a href="#chart-${escapeHtml(idFor(s.series))}">${escapeHtml(s.series)}</a></td>
-<td><span class="state state-${escapeHtml(state)}">${escapeHtml(STATE_LABEL[state] ?? 'not yet')}</span></td>
+<td><span class="state state-${escapeHtml(state)}">${escapeHtml(STATE_LABEL[state] ?? (state === 'off' ? 'off' : 'not yet'))}</span></td>
 <td class="num">${escapeHtml(fmtNum(s.recentMase))}</td>
 <td class="num">${escapeHtml(fmtNum(s.noveltyShare))}</td>
 <td>${escapeHtml(fmtTime(s.lastSuccessAt, s.timeZone))}</td>
@@ -87,7 +87,7 @@ export function renderPage(statuses: SeriesStatus[], opts: PageOptions): string 
   const charts = slice
     .map(
       (s) => `<section class="chart" id="chart-${escapeHtml(idFor(s.series))}" data-series="${escapeHtml(s.series)}">
-<h2>${escapeHtml(s.series)} <span class="state state-${escapeHtml(s.driftState ?? 'none')}">${escapeHtml(STATE_LABEL[s.driftState ?? ''] ?? 'not yet')}</span></h2>
+<h2>${escapeHtml(s.series)} <span class="state state-${escapeHtml(s.driftEnabled ? (s.driftState ?? 'none') : 'off')}">${escapeHtml(s.driftEnabled ? (STATE_LABEL[s.driftState ?? ''] ?? 'not yet') : 'drift off')}</span></h2>
 <div class="canvas-box"><canvas aria-label="${escapeHtml(`recent actuals and forecast of ${s.series}`)}" role="img"></canvas></div>
 <p class="note" data-role="note"></p>
 </section>`,

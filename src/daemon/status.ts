@@ -11,6 +11,8 @@ export interface SeriesStatus {
   timeZone: string;
   stepMs: number;
   schedule: string;
+  /** False when drift detection is off for the series (the page says "off"). */
+  driftEnabled: boolean;
   driftState: DriftState | null;
   driftStatistic: number | null;
   recentMase: number | null;
@@ -25,8 +27,9 @@ export interface SeriesStatus {
   lastReadingAt: number | null;
 }
 
-export function blankStatus(s: { series: string; timeZone: string; stepMs: number; schedule: string }): SeriesStatus {
+export function blankStatus(s: { series: string; timeZone: string; stepMs: number; schedule: string; driftEnabled?: boolean }): SeriesStatus {
   return {
+    driftEnabled: true,
     ...s,
     driftState: null,
     driftStatistic: null,
