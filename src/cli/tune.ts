@@ -351,7 +351,7 @@ export function registerTune(program: Command, ctx: CliContext = defaultContext(
     .option('--until <time>', 'end of the data used (RFC 3339 or epoch); default: after the newest reading')
     .option('--seed <n>', 'fit seed of every combination and of their start order (default: fit.seed)')
     .option('--budget <duration>', 'start no new combination after this long, e.g. 10m; report what has finished')
-    .option('--threads <n>', 'threads running combinations side by side (0 = all in the main thread); default: one per core, or the origins of each combination spread over the cores when there are fewer combinations than cores')
+    .option('--threads <n>', 'threads running combinations side by side (0 = all in the main thread); default: one per core when there are at least that many combinations and 60 fits')
     .option('--top <n>', 'rows of the ranking to print (default 15)')
     .option('--json', 'print a JSON document instead of the table')
     .option('--report <file.html>', 'write an HTML report (MASE heatmap over window x K, error by lead of the top settings)')

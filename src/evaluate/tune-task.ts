@@ -20,6 +20,8 @@ export interface TuneTask {
   exo: Record<string, RegularSeries>;
   settings: ForecastSettings;
   exoSettings?: Record<string, ForecastSettings>;
+  /** Forecasts of those inputs made once for the whole run (origin time ms -> values); see BacktestOptions.exoForecasts. */
+  exoForecasts?: Record<string, Record<string, number[]>>;
   spanSteps: number;
   everySteps: number;
   /** Steps before (and including) each origin over which the common MASE scale is taken. */
@@ -97,6 +99,7 @@ export async function runTuneTask(task: TuneTask, onProgress?: (p: TuneTaskProgr
       workers: task.originWorkers,
       ...(task.chainLength !== undefined ? { chainLength: task.chainLength } : {}),
       ...(task.exoSettings ? { exoSettings: task.exoSettings } : {}),
+      ...(task.exoForecasts ? { exoForecasts: task.exoForecasts } : {}),
       onProgress: (p: BacktestProgress) => onProgress?.({ id: task.id, ...p }),
     });
     const m = task.settings.features.seasonSteps;

@@ -3,11 +3,12 @@
  * `radcast backtest` (src/evaluate/backtest.ts) on the same origins, and the combinations are
  * ranked by MASE on one common yardstick (see tune-task.ts).
  *
- * Parallelism (two cores on the reference machine): with at least as many combinations as
- * threads, combinations run side by side on tune worker threads, each backtest inline in its
- * thread (no nested pools, one pool for the whole run); with fewer combinations than threads the
- * combinations run one after another and the backtest spreads its origins over its own workers.
- * bench/cases/tune.ts measures both; results never depend on the choice.
+ * Parallelism (two cores on the reference machine): combinations run side by side on tune worker
+ * threads, each backtest inline in its thread (no nested pools, one pool for the whole run), when
+ * there are at least as many combinations as cores and enough fits to pay for starting the
+ * workers; small runs stay in the calling thread. Spreading the origins of each combination over
+ * the backtest's own workers is available (originWorkers) but was slower in every measurement.
+ * bench/cases/tune.ts compares the three; results never depend on the choice.
  *
  * Noise rule: for every setting s and the best b, the per-origin MASE differences
  * d_o = MASE_s(o) - MASE_b(o) over the origins both scored are paired; with their mean d̄, sample
@@ -29,7 +30,7 @@ import type { RegularSeries } from '../series/types.ts';
 import type { ForecastSettings } from '../forecast/types.ts';
 import { ForecastError, isoAt } from '../forecast/errors.ts';
 import { mulberry32 } from '../model/random.ts';
-import { backtestOrigins, formatStep } from './backtest.ts';
+import { backtest, backtestOrigins, formatStep, modelForecasts } from './backtest.ts';
 import { runTuneTask, type CandidateOutcome, type CandidateScore, type LeadScore, type MethodSummary, type TuneTask, type TuneTaskProgress } from './tune-task.ts';
 import type { CandidateValues, RejectedCandidate, TuneCandidate } from './tune-grid.ts';
 
@@ -62,7 +63,7 @@ export interface TuneOptions {
    * another in the calling thread. Default: see defaultTuneParallelism.
    */
   threads?: number;
-  /** Worker threads of each backtest's origins when threads is 0 (default: one per core when threads was left to the default, else 0). */
+  /** Worker threads of each backtest's origins when threads is 0 (default 0). */
   originWorkers?: number;
   /** Seed of the start order (the fit seed is set in the candidates, see buildCandidates). */
   seed?: number;
@@ -72,6 +73,8 @@ export interface TuneOptions {
   now?: () => number;
   chainLength?: number;
   exoSettings?: Record<string, ForecastSettings>;
+  /** Forecast the inputs given in exoSettings once for all combinations (default true; false = inside every backtest). */
+  shareInputForecasts?: boolean;
   onProgress?: (p: TuneProgress) => void;
   /** Called when a combination has finished (after its progress). */
   onCandidate?: (c: { candidate: TuneCandidate; outcome: CandidateOutcome }) => void;
@@ -135,6 +138,8 @@ export interface TuneResult {
   notStarted: Array<{ id: number; label: string; values: CandidateValues }>;
   /** Refused by the config, or dropped for too little history. */
   skipped: Array<{ label: string; values: CandidateValues; code: string; message: string; hint: string }>;
+  /** Inputs forecast once for all combinations, with the number of the run's origins their forecasts cover. */
+  sharedInputs: Record<string, number>;
   noise: {
     rule: string;
     /** Ids of the settings within the noise of the best (the best not included). */
@@ -144,11 +149,19 @@ export interface TuneResult {
   };
 }
 
-/** Combination threads and origin workers when the caller does not say. */
-export function defaultTuneParallelism(nCandidates: number, cores = availableParallelism()): { threads: number; originWorkers: number } {
-  if (cores <= 1) return { threads: 0, originWorkers: 0 };
-  if (nCandidates >= cores) return { threads: cores, originWorkers: 0 };
-  return { threads: 0, originWorkers: cores };
+/** Below this many fits (combinations x origins) a run stays in the calling thread: starting workers costs more. */
+export const MIN_FITS_FOR_THREADS = 60;
+
+/**
+ * Combination threads and origin workers when the caller does not say: one thread per core over
+ * the combinations when there are at least as many combinations as cores and enough fits to pay
+ * for the workers' start-up, else everything in the calling thread. Spreading each combination's
+ * origins over workers instead was slower in every measurement (bench/cases/tune.ts: a pool per
+ * combination, and uneven chains), so it is used only when asked for.
+ */
+export function defaultTuneParallelism(nCandidates: number, nOrigins: number, cores = availableParallelism()): { threads: number; originWorkers: number } {
+  if (cores > 1 && nCandidates >= cores && nCandidates * nOrigins >= MIN_FITS_FOR_THREADS) return { threads: cores, originWorkers: 0 };
+  return { threads: 0, originWorkers: 0 };
 }
 
 /** Seeded Fisher–Yates shuffle (common practice). */
@@ -288,10 +301,32 @@ export async function tune(target: RegularSeries, exo: Record<string, RegularSer
       hint: 'load more history, try shorter windows, or lengthen backtest.span',
     });
   }
-  const par = defaultTuneParallelism(runnable.length);
+  const par = defaultTuneParallelism(runnable.length, plan.origins.length);
   const threads = Math.max(0, Math.floor(opts.threads ?? par.threads));
-  // threads 0 given by the caller: everything in this thread unless originWorkers says otherwise.
-  const originWorkers = threads > 0 ? 0 : Math.max(0, Math.floor(opts.originWorkers ?? (opts.threads === 0 ? 0 : par.originWorkers)));
+  const originWorkers = threads > 0 ? 0 : Math.max(0, Math.floor(opts.originWorkers ?? par.originWorkers));
+  // Inputs used at target time that are configured series are forecast at every origin with their
+  // own settings; those forecasts do not depend on the tuned settings, so they are made once here
+  // (the same chains as inside each backtest, so the numbers are the same) instead of per combination.
+  const exoForecasts: Record<string, Record<string, number[]>> = {};
+  const sharedInputs: Record<string, number> = {};
+  for (const spec of s0.features.exogenous) {
+    const es = opts.exoSettings?.[spec.name];
+    const ex = exo[spec.name];
+    if (opts.shareInputForecasts === false || !spec.atTarget || !es || !ex || es.features.exogenous.length > 0 || es.features.horizon < H || es.stepMs !== s0.stepMs) continue;
+    try {
+      const r = await backtest(ex, {}, { ...es, features: { ...es.features, horizon: H } }, {
+        spanSteps: plan.spanSteps,
+        everySteps: opts.everySteps,
+        workers: threads > 0 ? threads : originWorkers,
+        ...(opts.chainLength !== undefined ? { chainLength: opts.chainLength } : {}),
+        ...(opts.signal ? { signal: opts.signal } : {}),
+      });
+      exoForecasts[spec.name] = modelForecasts(r);
+      sharedInputs[spec.name] = plan.origins.filter((o) => String(target.startMs + o * target.stepMs) in exoForecasts[spec.name]).length;
+    } catch {
+      // Each combination then forecasts the input itself, origin by origin.
+    }
+  }
   const order = shuffled(runnable, seed);
   const perCandidate = plan.origins.length;
   const originsTotal = perCandidate * order.length;
@@ -315,6 +350,7 @@ export async function tune(target: RegularSeries, exo: Record<string, RegularSer
     exo,
     settings: c.settings,
     ...(opts.exoSettings ? { exoSettings: opts.exoSettings } : {}),
+    ...(Object.keys(exoForecasts).length ? { exoForecasts } : {}),
     spanSteps: plan.spanSteps,
     everySteps: opts.everySteps,
     scaleWindowSteps: plan.scaleWindowSteps,
@@ -410,6 +446,7 @@ export async function tune(target: RegularSeries, exo: Record<string, RegularSer
     failed,
     notStarted,
     skipped,
+    sharedInputs,
     noise: { rule: NOISE_RULE_TEXT, withinNoise: ranked.withinNoise, cheapestWithinNoise: ranked.cheapestWithinNoise },
   };
 }
@@ -440,6 +477,7 @@ export function tuneJson(r: TuneResult, extra: { best?: Record<string, unknown>;
     origins: r.origins,
     originTimes: r.originTimes.map(isoAt),
     scaleWindowSteps: r.scaleWindowSteps,
+    sharedInputs: r.sharedInputs,
     seed: r.seed,
     threads: r.threads,
     originWorkers: r.originWorkers,

@@ -56,6 +56,7 @@ const JsonDoc = z.strictObject({
   origins: z.number().int(),
   originTimes: z.array(z.iso.datetime()),
   scaleWindowSteps: z.number().int(),
+  sharedInputs: z.record(z.string(), z.number().int()),
   seed: z.number().int(),
   threads: z.number().int(),
   originWorkers: z.number().int(),

@@ -6,7 +6,7 @@
 import { describe, expect, it } from 'vitest';
 import { parseConfigText } from '../../../src/config/load.ts';
 import { buildCandidates, gridFor, tunedKeys, tuneSnippet, yamlInline } from '../../../src/evaluate/tune-grid.ts';
-import { formatTuneTable, pairedDifference, rankCandidates, shuffled, tune, NOISE_SE_MULTIPLE, type TuneProgress } from '../../../src/evaluate/tune.ts';
+import { defaultTuneParallelism, formatTuneTable, pairedDifference, rankCandidates, shuffled, tune, NOISE_SE_MULTIPLE, type TuneProgress } from '../../../src/evaluate/tune.ts';
 import type { CandidateScore } from '../../../src/evaluate/tune-task.ts';
 import { knownRbfConfig, knownRbfSeries } from './tune-fixtures.ts';
 
@@ -126,6 +126,13 @@ describe('determinism, threads and the budget', () => {
     for (const e of inline.ranking) expect(e.score.originTimes).toEqual(inline.originTimes);
   }, 60_000);
 
+  it('uses threads over the combinations only when there are enough of them and enough fits', () => {
+    expect(defaultTuneParallelism(24, 28, 2)).toEqual({ threads: 2, originWorkers: 0 });
+    expect(defaultTuneParallelism(4, 7, 2)).toEqual({ threads: 0, originWorkers: 0 }); // 28 fits: start-up dominates
+    expect(defaultTuneParallelism(1, 200, 2)).toEqual({ threads: 0, originWorkers: 0 });
+    expect(defaultTuneParallelism(24, 28, 1)).toEqual({ threads: 0, originWorkers: 0 });
+  });
+
   it('starts no combination once the budget has passed on the injected clock', async () => {
     const { candidates } = small();
     let clock = 0;
@@ -151,6 +158,25 @@ describe('determinism, threads and the budget', () => {
     // The seeded order decides which two ran.
     expect(finished).toEqual(shuffled(candidates, 5).slice(0, 2).map((c) => c.id));
     expect(formatTuneTable(r)).toMatch(/Budget: stopped .* 2 not run/);
+  });
+});
+
+describe('inputs forecast at target time', () => {
+  it('forecasts a configured input once for all combinations, with the same numbers as inside each backtest', async () => {
+    const text = knownRbfConfig({ tune: '{ windows: [200], centres: [4, 8], widthModes: [shared] }', backtest: '{ every: 8, span: 32 }' })
+      .replace('exogenous: [{ name: drive, lags: [1] }]', 'exogenous: [{ name: drive, lags: [1], atTarget: true }]')
+      .concat('  - name: drive\n    horizon: 1\n    window: 200\n    lags: [1]\n    centres: 4\n    seasonalInputs: false\n    targetMode: absolute\n    calendar: { hourOfDay: false, dayOfWeek: false }\n');
+    const loaded = load(text);
+    const { candidates } = buildCandidates(loaded.config, 0, gridFor(loaded.config.series[0]), { seed: 4 });
+    const exoSettings = { drive: loaded.series.find((s) => s.name === 'drive')!.settings };
+    const base = { spanSteps: 32, everySteps: 8, threads: 0, originWorkers: 0, seed: 4, exoSettings };
+    const shared = await tune(data.target, { drive: data.drive }, candidates, base);
+    const each = await tune(data.target, { drive: data.drive }, candidates, { ...base, shareInputForecasts: false });
+    const key = (r: typeof shared) => r.ranking.map((e) => [e.id, e.score.model.mase, e.score.maseByOrigin]);
+    expect(key(shared)).toEqual(key(each));
+    expect(shared.ranking[0].score.origins).toBe(4);
+    expect(shared.sharedInputs).toEqual({ drive: 4 });
+    expect(each.sharedInputs).toEqual({});
   });
 });
 
