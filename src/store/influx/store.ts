@@ -49,6 +49,8 @@ export class InfluxStore implements SeriesStore {
   readonly #outbox: Outbox;
   #readFailures = 0;
   #closed = false;
+  /** The credentials in every form a request carries them, longest first (scrubbed from errors). */
+  readonly #secretForms: string[];
 
   constructor(opts: InfluxStoreOptions) {
     this.#opts = opts;
@@ -58,6 +60,7 @@ export class InfluxStore implements SeriesStore {
     this.#m = { ...INFLUX_DEFAULTS.measurements, ...(opts.measurements ?? {}) };
     for (const [role, name] of Object.entries(this.#m)) checkMeasurementName(role, name);
     this.#logger = opts.logger ?? silentLogger;
+    this.#secretForms = credentialForms(opts);
     const batchSize = opts.batchSize ?? INFLUX_DEFAULTS.batchSize;
 
     if (opts.api === 'v1') {
@@ -102,7 +105,7 @@ export class InfluxStore implements SeriesStore {
         try {
           await this.#writeApi.flush();
         } catch (err) {
-          throw clientError(err, writePath, this.#timeoutMs, true);
+          throw this.#redact(clientError(err, writePath, this.#timeoutMs, true));
         }
       },
     };
@@ -144,8 +147,20 @@ export class InfluxStore implements SeriesStore {
       return out.filter((r) => r.t >= w.fromMs && r.t < w.toMs);
     } catch (err) {
       this.#readFailures++;
-      throw err;
+      throw this.#redact(err);
     }
+  }
+
+  /**
+   * A server or gateway may echo the request (with its Authorization header) in an error answer,
+   * and the message quotes the answer: take the credentials out before the error leaves the adapter.
+   */
+  #redact<T>(err: T): T {
+    if (!(err instanceof Error) || this.#secretForms.length === 0) return err;
+    const scrub = (t: string) => this.#secretForms.reduce((acc, f) => acc.split(f).join('[redacted]'), t);
+    err.message = scrub(err.message);
+    if (err.stack) err.stack = scrub(err.stack);
+    return err;
   }
 
   async #readV1(rs: ReturnType<typeof resolveSelector>, fromMs: number, toMs: number): Promise<Reading[]> {
@@ -260,6 +275,20 @@ function checkMeasurementName(role: string, name: string): void {
       hint: 'use a name that does not start with "#", has no control characters and does not end in a backslash',
     });
   }
+}
+
+/** Token and password as sent: raw, URL-encoded, base64, and the Basic credentials of user:password. */
+function credentialForms(opts: InfluxStoreOptions): string[] {
+  const out = new Set<string>();
+  const password = opts.api === 'v1' ? opts.password : undefined;
+  for (const v of [opts.token, password]) {
+    if (v === undefined || v.length < 4) continue;
+    out.add(v);
+    out.add(encodeURIComponent(v));
+    out.add(Buffer.from(v, 'utf8').toString('base64'));
+  }
+  if (opts.api === 'v1' && opts.user !== undefined && password !== undefined) out.add(Buffer.from(`${opts.user}:${password}`, 'utf8').toString('base64'));
+  return [...out].sort((a, b) => b.length - a.length);
 }
 
 /** Maps an error thrown by the client library (HttpError, timeout, socket error) to a StoreError. */
