@@ -40,7 +40,7 @@ class SabotagedFitter implements Fitter {
     const name = req.settings.series;
     this.calls.set(name, (this.calls.get(name) ?? 0) + 1);
     if (name === THROWS_PLAIN) throw new TypeError("Cannot read properties of undefined (reading 'centres')");
-    if (name === THROWS_CODED) throw new ModelError('SINGULAR_SYSTEM', 'ridge system has no solution', { argument: 'gram' }, 'raise ridge');
+    if (name === THROWS_CODED) throw new ModelError('SINGULAR_SYSTEM', 'ridge system has no solution', { where: 'gram' }, 'raise ridge');
     return this.#inner.fitAndForecast(req, signal);
   }
   async stop() {
