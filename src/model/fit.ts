@@ -26,7 +26,7 @@ export const DEFAULT_FIT_OPTIONS: Readonly<Required<Omit<FitOptions, 'warmStart'
   seed: 1,
   subsampleRows: 0,
   kmeansTol: 1e-4,
-  warmMaxPasses: 5,
+  warmMaxPasses: 3,
   refitAllRows: true,
   ridgeSearch: true,
 });
@@ -328,8 +328,9 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     trainMse: number;
     valMse: number;
   }
-  const activations = (g: Float64Array, rows: number, out: Float64Array = new Float64Array(nSamples * K)): Float64Array => {
-    for (let n = 0; n < rows; n++) for (let k = 0; k < K; k++) out[n * K + k] = Math.exp(-g[k] * d2[n * K + k]);
+  /** Gaussian activations of rows [r0, r1) into out (nSamples x K). */
+  const activations = (g: Float64Array, r0: number, r1: number, out: Float64Array = new Float64Array(nSamples * K)): Float64Array => {
+    for (let n = r0; n < r1; n++) for (let k = 0; k < K; k++) out[n * K + k] = Math.exp(-g[k] * d2[n * K + k]);
     return out;
   };
   const evaluate = (g: Float64Array, e: Float64Array, searchRidge: boolean): State => {
@@ -351,7 +352,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
 
   // Shrinkage of the Gaussian weights chosen on the validation tail (ridgeSearch); the largest
   // candidate is almost the linear model, so a nearly linear series is not made worse by Gaussians.
-  let cur = evaluate(gammas, activations(gammas, nSamples), nVal > 0 && o.ridgeSearch);
+  let cur = evaluate(gammas, activations(gammas, 0, nSamples), nVal > 0 && o.ridgeSearch);
   const judge = (s: State): number => (nVal > 0 ? s.valMse : s.trainMse);
   const history: FitHistoryEntry[] = [{ iteration: 0, trainMse: cur.trainMse, validationMse: cur.valMse, accepted: true }];
   let step = FIRST_LOG_STEP;
@@ -388,7 +389,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     for (let half = 0; half <= MAX_HALVINGS; half++) {
       const c = new Float64Array(K);
       for (let k = 0; k < K; k++) c[k] = cur.gammas[k] * Math.exp(-(t / gmax) * grad[k]);
-      activations(c, nTrain, spare);
+      activations(c, 0, nTrain, spare);
       const pe = matmul(spare, nTrain, K, cur.wE, H);
       let s = 0;
       for (let i = 0; i < nTrain * H; i++) {
@@ -403,7 +404,8 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     }
     if (cand === null) break;
     // Weights re-solved exactly for the new widths; the step stands only if validation improves.
-    const next = evaluate(cand, activations(cand, nSamples, spare), false);
+    // The accepted trial left the training rows' activations in `spare`; add the tail's.
+    const next = evaluate(cand, activations(cand, nTrain, nSamples, spare), false);
     const accepted = judge(next) <= judge(cur);
     history.push({ iteration: it, trainMse: next.trainMse, validationMse: next.valMse, accepted });
     if (!accepted) break;

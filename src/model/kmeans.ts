@@ -122,6 +122,12 @@ interface DistancePass {
   assign(c: Float64Array, c2: Float64Array, K: number, labels: Int32Array, mind: Float64Array, dist2: Float64Array | null): number;
   /** Full squared-distance matrix (n x K). */
   all(c: Float64Array, c2: Float64Array, K: number, out: Float64Array): Float64Array;
+  /** k-means++ step (see SimdKernels.seedUpdate); minD2 is valid until the next call. */
+  seed(centre: Float64Array, first: boolean): { total: number; minD2: Float64Array };
+  /** Squared distance of every row to its own centre (difference form). */
+  own(c: Float64Array, K: number, labels: Int32Array, out: Float64Array): Float64Array;
+  /** Squared distances (count x K) of the rows rows[0..count) only. */
+  rows(rows: Int32Array, count: number, c: Float64Array, c2: Float64Array, K: number, out: Float64Array): Float64Array;
 }
 
 function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): DistancePass {
@@ -131,6 +137,9 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
     return {
       assign: (c, c2, K, labels, mind) => res.assign(c, c2, K, labels, mind),
       all: (c, c2, K, out) => res.dist2(c, c2, K, out),
+      rows: (rows, count, c, c2, K, out) => res.dist2Rows(rows, count, c, c2, K, out),
+      own: (c, K, labels, out) => res.ownDist2(c, K, labels, out),
+      seed: (centre, first) => res.seedUpdate(centre, first),
     };
   }
   return {
@@ -141,6 +150,46 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
     },
     all(c, c2, K, out) {
       dist2Scalar(x, x2, n, d, c, c2, K, out);
+      return out;
+    },
+    seed: (() => {
+      const minD2 = new Float64Array(n);
+      return (centre: Float64Array, first: boolean) => {
+        let total = 0;
+        for (let i = 0; i < n; i++) {
+          let s = 0;
+          const o = i * d;
+          for (let j = 0; j < d; j++) {
+            const e = x[o + j] - centre[j];
+            s += e * e;
+          }
+          if (first || s < minD2[i]) minD2[i] = s;
+          total += minD2[i];
+        }
+        return { total, minD2 };
+      };
+    })(),
+    own(c, _K, labels, out) {
+      for (let i = 0; i < n; i++) {
+        let s = 0;
+        const xo = i * d;
+        const co = labels[i] * d;
+        for (let j = 0; j < d; j++) {
+          const e = x[xo + j] - c[co + j];
+          s += e * e;
+        }
+        out[i] = s;
+      }
+      return out;
+    },
+    rows(rows, count, c, c2, K, out) {
+      const g = new Float64Array(count * d);
+      const g2 = new Float64Array(count);
+      for (let i = 0; i < count; i++) {
+        g.set(x.subarray(rows[i] * d, (rows[i] + 1) * d), i * d);
+        g2[i] = x2[rows[i]];
+      }
+      dist2Scalar(g, g2, count, d, c, c2, K, out);
       return out;
     },
   };
@@ -170,14 +219,11 @@ function argminRows(dist2: Float64Array, n: number, K: number, labels: Int32Arra
 /** k-means++ seeding: first centre uniform, then each next sample with probability ∝ D(x)^2. */
 function seedPlusPlus(x: Float64Array, n: number, d: number, K: number, rnd: Random, pass: DistancePass): Float64Array {
   const c = new Float64Array(K * d);
-  const minD2 = new Float64Array(n);
-  const dk = new Float64Array(n);
-  const c2 = new Float64Array(1);
   let pick = randomIndex(rnd, n);
+  let state: { total: number; minD2: Float64Array } = { total: 0, minD2: new Float64Array(0) };
   for (let k = 0; k < K; k++) {
     if (k > 0) {
-      let total = 0;
-      for (let i = 0; i < n; i++) total += minD2[i];
+      const { total, minD2 } = state;
       if (total > 0) {
         const target = rnd() * total;
         let cum = 0;
@@ -196,11 +242,8 @@ function seedPlusPlus(x: Float64Array, n: number, d: number, K: number, rnd: Ran
     }
     const centre = x.subarray(pick * d, (pick + 1) * d);
     c.set(centre, k * d);
-    // Same summation order as the row norms, so the picked sample's own distance is exactly 0.
-    rowNorms2(centre, 1, d, c2);
-    pass.all(centre, c2, 1, dk);
-    if (k === 0) minD2.set(dk);
-    else for (let i = 0; i < n; i++) if (dk[i] < minD2[i]) minD2[i] = dk[i];
+    // Difference form: the picked sample's own distance is exactly 0, so it is never re-picked.
+    state = pass.seed(centre, k === 0);
   }
   return c;
 }
@@ -209,92 +252,199 @@ function seedPlusPlus(x: Float64Array, n: number, d: number, K: number, rnd: Ran
  * Lloyd's algorithm from the given centres: assign, repair empty clusters, move centres to the
  * means; stop when no label changes, the squared centre shift is <= tolAbs, or after maxPasses.
  * Ends with an assignment to the final centres so labels and inertia agree with them.
+ *
+ * Assignments after the first skip the full distance row of a sample when Hamerly's bounds
+ * (Hamerly 2010, "Making k-means even faster") prove its centre is still the nearest: the exact
+ * distance u to its own centre against a lower bound l on the second nearest (decreased by the
+ * largest centre move) and half the distance from its centre to the nearest other centre. The
+ * test keeps a relative margin of 1e-9, far above the rounding of the distance kernel, so every
+ * skipped sample would have kept its label in the full pass too: the result equals plain Lloyd.
  */
 export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, centres: Float64Array, K: number, maxPasses: number, tolAbs: number, pass = distancePass(x, x2, n, d)): LloydRun {
-  const scalarDist = simdKernels() ? null : new Float64Array(n * K);
   const labels = new Int32Array(n).fill(-1);
-  const next = new Int32Array(n);
-  const mind = new Float64Array(n);
+  /** Squared distance of every sample to its own centre (exact difference form after pass 1). */
+  const own = new Float64Array(n);
+  /** Lower bound on the distance (not squared) to the second nearest centre. */
+  const lower = new Float64Array(n);
   const counts = new Int32Array(K);
   const sums = new Float64Array(K * d);
   const c2 = new Float64Array(K);
+  const before = new Float64Array(K * d);
+  const moved = new Float64Array(K);
+  const half = new Float64Array(K);
+  const todo = new Int32Array(n);
   const inertiaByPass: number[] = [];
   let passes = 0;
-  let inertia = 0;
   let settled = false;
-  while (passes < maxPasses) {
+  let changed = 0;
+
+  /**
+   * Moves sample i from cluster `from` (-1: none) to `to`, keeping the member sums and counts
+   * current, so the centre update costs K x d instead of n x d.
+   */
+  const moveSample = (i: number, from: number, to: number): void => {
+    const xo = i * d;
+    if (from >= 0) {
+      counts[from]--;
+      const so = from * d;
+      for (let j = 0; j < d; j++) sums[so + j] -= x[xo + j];
+    }
+    counts[to]++;
+    const so = to * d;
+    for (let j = 0; j < d; j++) sums[so + j] += x[xo + j];
+    labels[i] = to;
+  };
+
+  /** Full assignment of the given rows from their distance rows (count x K). */
+  const assignRows = (rows: Int32Array | null, count: number, dist: Float64Array): void => {
+    for (let t = 0; t < count; t++) {
+      const i = rows ? rows[t] : t;
+      const o = t * K;
+      let bk = 0;
+      let b1 = dist[o];
+      let b2 = Infinity;
+      for (let k = 1; k < K; k++) {
+        const v = dist[o + k];
+        if (v < b1) {
+          b2 = b1;
+          b1 = v;
+          bk = k;
+        } else if (v < b2) b2 = v;
+      }
+      const old = labels[i];
+      if (old !== bk) {
+        changed++;
+        moveSample(i, old, bk);
+      }
+      own[i] = b1;
+      lower[i] = Math.sqrt(b2);
+    }
+  };
+
+  const full = (): void => {
     rowNorms2(centres, K, d, c2);
-    inertia = pass.assign(centres, c2, K, next, mind, scalarDist);
+    assignRows(null, n, pass.all(centres, c2, K, new Float64Array(n * K)));
+  };
+
+  const bounded = (): void => {
+    rowNorms2(centres, K, d, c2);
+    // Largest and second largest centre move; half distance to the nearest other centre.
+    let m1 = 0;
+    let m2 = 0;
+    let mk = -1;
+    for (let k = 0; k < K; k++) {
+      const v = moved[k];
+      if (v > m1) {
+        m2 = m1;
+        m1 = v;
+        mk = k;
+      } else if (v > m2) m2 = v;
+    }
+    half.fill(Infinity);
+    for (let k = 0; k < K; k++) {
+      for (let k2 = k + 1; k2 < K; k2++) {
+        let s = 0;
+        for (let j = 0; j < d; j++) {
+          const e = centres[k * d + j] - centres[k2 * d + j];
+          s += e * e;
+        }
+        const h = 0.5 * Math.sqrt(s);
+        if (h < half[k]) half[k] = h;
+        if (h < half[k2]) half[k2] = h;
+      }
+    }
+    let count = 0;
+    // u = |x_i - c_a| in the exact difference form, for every sample.
+    pass.own(centres, K, labels, own);
+    for (let i = 0; i < n; i++) {
+      const a = labels[i];
+      const l = lower[i] - (a === mk ? m2 : m1);
+      lower[i] = l;
+      const bound = l > half[a] ? l : half[a];
+      if (Math.sqrt(own[i]) >= bound * (1 - 1e-9)) todo[count++] = i;
+    }
+    if (count > 0) assignRows(todo, count, pass.rows(todo, count, centres, c2, K, new Float64Array(count * K)));
+  };
+
+  const sumOwn = (): number => {
+    let s = 0;
+    for (let i = 0; i < n; i++) s += own[i];
+    return s;
+  };
+
+  while (passes < maxPasses) {
+    changed = 0;
+    if (passes === 0) full();
+    else bounded();
     passes++;
-    inertiaByPass.push(inertia);
-    let changed = 0;
-    for (let i = 0; i < n; i++) if (next[i] !== labels[i]) changed++;
-    labels.set(next);
+    inertiaByPass.push(sumOwn());
     if (passes > 1 && changed === 0) {
       settled = true;
       break;
     }
-    inertia -= repairEmpty(x, n, d, mind, K, labels, centres);
-    // Centre update: c_k = mean of its members.
-    counts.fill(0);
-    sums.fill(0);
-    for (let i = 0; i < n; i++) {
-      const k = labels[i];
-      counts[k]++;
-      const so = k * d;
-      const xo = i * d;
-      for (let j = 0; j < d; j++) sums[so + j] += x[xo + j];
-    }
-    let shift = 0;
+    before.set(centres);
+    let empty = false;
+    for (let k = 0; k < K; k++) if (counts[k] === 0) empty = true;
+    if (empty) repairEmpty(n, d, own, K, labels, counts, centres, lower, x, moveSample);
+    // Centre update: c_k = mean of its members (sums kept current by moveSample).
     for (let k = 0; k < K; k++) {
       const cnt = counts[k];
       if (cnt === 0) continue;
       const o = k * d;
+      for (let j = 0; j < d; j++) centres[o + j] = sums[o + j] / cnt;
+    }
+    let shift = 0;
+    for (let k = 0; k < K; k++) {
+      let s = 0;
       for (let j = 0; j < d; j++) {
-        const v = sums[o + j] / cnt;
-        const e = v - centres[o + j];
-        shift += e * e;
-        centres[o + j] = v;
+        const e = centres[k * d + j] - before[k * d + j];
+        s += e * e;
       }
+      moved[k] = Math.sqrt(s);
+      shift += s;
     }
     if (shift <= tolAbs) break;
   }
   if (!settled) {
-    rowNorms2(centres, K, d, c2);
-    inertia = pass.assign(centres, c2, K, labels, mind, scalarDist);
+    changed = 0;
+    bounded();
     passes++;
-    inertiaByPass.push(inertia);
+    inertiaByPass.push(sumOwn());
   }
-  return { centres, labels, inertia, passes, inertiaByPass };
+  return { centres, labels, inertia: inertiaByPass[inertiaByPass.length - 1], passes, inertiaByPass };
 }
 
 /**
  * Empty clusters take the sample farthest from its own centre (which then forms a singleton);
- * returns the decrease of the objective so the caller's inertia stays exact.
+ * `own` holds each sample's squared distance to its centre.
  */
-function repairEmpty(x: Float64Array, n: number, d: number, mind: Float64Array, K: number, labels: Int32Array, centres: Float64Array): number {
-  const counts = new Int32Array(K);
-  for (let i = 0; i < n; i++) counts[labels[i]]++;
-  let gain = 0;
+function repairEmpty(
+  n: number,
+  d: number,
+  own: Float64Array,
+  K: number,
+  labels: Int32Array,
+  counts: Int32Array,
+  centres: Float64Array,
+  lower: Float64Array,
+  x: Float64Array,
+  moveSample: (i: number, from: number, to: number) => void,
+): void {
   for (let k = 0; k < K; k++) {
     if (counts[k] > 0) continue;
     let far = -1;
     let farV = -1;
     for (let i = 0; i < n; i++) {
       if (counts[labels[i]] <= 1) continue; // never empty another cluster
-      const v = mind[i];
-      if (v > farV) {
-        farV = v;
+      if (own[i] > farV) {
+        farV = own[i];
         far = i;
       }
     }
     if (far < 0) break;
-    counts[labels[far]]--;
-    labels[far] = k;
-    counts[k] = 1;
-    gain += farV;
-    mind[far] = 0;
+    moveSample(far, labels[far], k);
+    own[far] = 0;
+    lower[far] = 0; // its old centre may now be the nearest other one: recompute next pass
     for (let j = 0; j < d; j++) centres[k * d + j] = x[far * d + j];
   }
-  return gain;
 }

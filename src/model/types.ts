@@ -70,7 +70,7 @@ export interface FitOptions {
   subsampleRows?: number;
   /** k-means shift tolerance (see KMeansOptions.tol). Default 1e-4. */
   kmeansTol?: number;
-  /** Lloyd passes allowed when warm-started from a previous model's centres. Default 5. */
+  /** Lloyd passes allowed when warm-started from a previous model's centres. Default 3. */
   warmMaxPasses?: number;
   /** After choosing widths on the validation tail, solve the final weights on all rows. Default true. */
   refitAllRows?: boolean;

@@ -11,6 +11,15 @@ export interface ResidentRows {
   dist2(c: Float64Array, c2: Float64Array, n: number, out: Float64Array): Float64Array;
   /** Nearest centre of every row into labels, its squared distance into mind; returns the sum. */
   assign(c: Float64Array, c2: Float64Array, n: number, labels: Int32Array, mind: Float64Array): number;
+  /**
+   * k-means++ step for one new centre c: minD2[i] = min(minD2[i], |x_i - c|^2) (difference form;
+   * = when first). Returns the sum and a view of minD2, valid until the next kernel call.
+   */
+  seedUpdate(c: Float64Array, first: boolean): { total: number; minD2: Float64Array };
+  /** out[i] = |x_i - c_labels[i]|^2 in the difference form (c is n x k, row-major). */
+  ownDist2(c: Float64Array, n: number, labels: Int32Array, out: Float64Array): Float64Array;
+  /** out (count x n) = squared distances of the rows rows[0..count) to the n centres. */
+  dist2Rows(rows: Int32Array, count: number, c: Float64Array, c2: Float64Array, n: number, out: Float64Array): Float64Array;
 }
 
 export interface SimdKernels {
@@ -34,6 +43,8 @@ interface Exports {
   dist2(a: number, m: number, k: number, b: number, n: number, a2: number, b2: number, c: number): void;
   argmin(d: number, m: number, n: number, stride: number, labels: number, mind: number): number;
   transpose(src: number, rows: number, cols: number, stride: number, dst: number): void;
+  ownDist(x: number, m: number, k: number, c: number, labels: number, out: number): void;
+  seedUpdate(x: number, m: number, k: number, c: number, mind: number, first: number): number;
 }
 
 const PAGE = 65536;
@@ -115,6 +126,54 @@ export function loadSimdKernels(): SimdKernels | null {
         dist2(c, c2, n, out) {
           const { np, pd } = pass(c, c2, n);
           copyOut(pd, m, n, np, out);
+          return out;
+        },
+        seedUpdate(c, first) {
+          const pm = base;
+          const pc = align16(pm + m * 8);
+          reserve(pc + k * 8);
+          if (owner !== token) {
+            if (!first) throw new Error('seedUpdate: rows were evicted between seeding steps');
+            upload();
+          }
+          f64.set(c.subarray(0, k), pc / 8);
+          const total = ex.seedUpdate(px, m, k, pc, pm, first ? 1 : 0);
+          return { total, minD2: f64.subarray(pm / 8, pm / 8 + m) };
+        },
+        ownDist2(c, n, labels, out) {
+          const pc = base;
+          const pl = align16(pc + n * k * 8);
+          const po = align16(pl + m * 4);
+          reserve(po + m * 8);
+          if (owner !== token) upload();
+          f64.set(c.subarray(0, n * k), pc / 8);
+          new Int32Array(mem.buffer, pl, m).set(labels.subarray(0, m));
+          ex.ownDist(px, m, k, pc, pl, po);
+          out.set(f64.subarray(po / 8, po / 8 + m));
+          return out;
+        },
+        dist2Rows(rows, count, c, c2, n, out) {
+          const np = n + (n & 1);
+          const pb = base;
+          const pb2 = align16(pb + k * np * 8);
+          const pg = align16(pb2 + np * 8);
+          const pg2 = align16(pg + count * k * 8);
+          const pd = align16(pg2 + count * 8);
+          reserve(pd + count * np * 8);
+          if (owner !== token) upload();
+          putCentres(c, c2, n, np, k, pb, pb2);
+          // Gather the rows inside the module's memory (no copy through JavaScript arrays).
+          const og = pg / 8;
+          const ox = px / 8;
+          const og2 = pg2 / 8;
+          const ox2 = px2 / 8;
+          for (let i = 0; i < count; i++) {
+            const r = rows[i];
+            f64.copyWithin(og + i * k, ox + r * k, ox + (r + 1) * k);
+            f64[og2 + i] = f64[ox2 + r];
+          }
+          ex.dist2(pg, count, k, pb, np, pg2, pb2, pd);
+          copyOut(pd, count, n, np, out);
           return out;
         },
         assign(c, c2, n, labels, mind) {
