@@ -1,0 +1,128 @@
+/**
+ * The WebAssembly SIMD kernels against the plain TypeScript loops they replace (same formulas;
+ * the kernels sum each dot product in the same order, so most results agree bit for bit).
+ */
+import { afterEach, describe, expect, it } from 'vitest';
+import fc from 'fast-check';
+import { dist2Scalar, rowNorms2, simdKernels, useKernels } from '../../../src/model/distance.ts';
+import { loadSimdKernels } from '../../../src/model/wasm/kernels.ts';
+import { crossProduct, gram } from '../../../src/model/blas.ts';
+import { DEFAULT_FIT_OPTIONS, fitRbf, kmeans, predictRbf } from '../../../src/model/index.ts';
+import { lagSamples, noise } from './helpers.ts';
+
+const simd = loadSimdKernels();
+
+function randomMatrix(rows: number, cols: number, seed: number): Float64Array {
+  const z = noise(seed);
+  return Float64Array.from({ length: rows * cols }, () => z());
+}
+
+afterEach(() => useKernels('auto'));
+
+describe('SIMD kernels', () => {
+  it('are available on this runtime (Node 20 has WebAssembly SIMD)', () => {
+    expect(simd).not.toBeNull();
+    expect(simdKernels()).not.toBeNull();
+  });
+
+  const shapes = fc.record({ m: fc.integer({ min: 1, max: 37 }), n: fc.integer({ min: 1, max: 19 }), k: fc.integer({ min: 1, max: 23 }), seed: fc.integer({ min: 0, max: 1e6 }) });
+
+  it('gemm equals the plain triple loop for odd and even shapes', () => {
+    fc.assert(
+      fc.property(shapes, ({ m, n, k, seed }) => {
+        const a = randomMatrix(m, k, seed);
+        const b = randomMatrix(k, n, seed + 1);
+        const out = simd!.gemm(a, m, k, b, n, new Float64Array(m * n));
+        for (let i = 0; i < m; i++) {
+          for (let j = 0; j < n; j++) {
+            let s = 0;
+            for (let l = 0; l < k; l++) s += a[i * k + l] * b[l * n + j];
+            expect(out[i * n + j]).toBe(s);
+          }
+        }
+      }),
+      { numRuns: 60 },
+    );
+  });
+
+  it('dist2 equals the scalar kernel, and the pad centre of odd counts never leaks', () => {
+    fc.assert(
+      fc.property(shapes, ({ m, n, k, seed }) => {
+        const x = randomMatrix(m, k, seed);
+        const c = randomMatrix(n, k, seed + 7);
+        const x2 = rowNorms2(x, m, k);
+        const c2 = rowNorms2(c, n, k);
+        const ref = new Float64Array(m * n);
+        dist2Scalar(x, x2, m, k, c, c2, n, ref);
+        const out = simd!.dist2(x, x2, m, c, c2, n, k, new Float64Array(m * n));
+        expect(Array.from(out)).toEqual(Array.from(ref));
+        // Resident rows: full pass, subset of rows, assignment, own-centre distances.
+        const res = simd!.resident(x, x2, m, k);
+        expect(Array.from(res.dist2(c, c2, n, new Float64Array(m * n)))).toEqual(Array.from(ref));
+        const rows = Int32Array.from({ length: m }, (_, i) => (i * 7) % m);
+        const sub = res.dist2Rows(rows, m, c, c2, n, new Float64Array(m * n));
+        for (let i = 0; i < m; i++) for (let j = 0; j < n; j++) expect(sub[i * n + j]).toBe(ref[rows[i] * n + j]);
+        const labels = new Int32Array(m);
+        const mind = new Float64Array(m);
+        res.assign(c, c2, n, labels, mind);
+        for (let i = 0; i < m; i++) {
+          const row = Array.from(ref.subarray(i * n, (i + 1) * n));
+          expect(labels[i]).toBe(row.indexOf(Math.min(...row)));
+          expect(mind[i]).toBe(Math.min(...row));
+        }
+        const own = res.ownDist2(c, n, labels, new Float64Array(m));
+        for (let i = 0; i < m; i++) {
+          let s = 0;
+          for (let l = 0; l < k; l++) s += (x[i * k + l] - c[labels[i] * k + l]) ** 2;
+          expect(own[i]).toBeCloseTo(s, 10);
+        }
+      }),
+      { numRuns: 60 },
+    );
+  });
+
+  it('crossRows equals the plain Gram and cross products over a row range', () => {
+    fc.assert(
+      fc.property(fc.record({ n: fc.integer({ min: 3, max: 300 }), p: fc.integer({ min: 1, max: 13 }), h: fc.integer({ min: 1, max: 7 }), seed: fc.integer({ min: 0, max: 1e6 }) }), ({ n, p, h, seed }) => {
+        const a = randomMatrix(n, p, seed);
+        const r = randomMatrix(n, h, seed + 3);
+        const r0 = Math.floor(n / 3);
+        const g = gram(a, p, r0, n);
+        const b = crossProduct(a, p, r, h, r0, n);
+        const out = simd!.crossRows(a, p, r, h, r0, n, true, new Float64Array(p * (p + h)));
+        for (let i = 0; i < p; i++) {
+          for (let j = 0; j < p; j++) expect(out[i * (p + h) + j]).toBeCloseTo(g[i * p + j], 10);
+          for (let c = 0; c < h; c++) expect(out[i * (p + h) + p + c]).toBeCloseTo(b[i * h + c], 10);
+        }
+      }),
+      { numRuns: 40 },
+    );
+  });
+});
+
+describe('results do not depend on the kernels', () => {
+  it('k-means gives the same labels and centres with the SIMD and the scalar kernels', () => {
+    const x = { data: randomMatrix(700, 9, 4), rows: 700, cols: 9 };
+    const o = { nCentres: 13, restarts: 2, maxPasses: 100, tol: 0, seed: 9 };
+    const a = kmeans(x, o);
+    useKernels('js');
+    const b = kmeans(x, o);
+    expect(Array.from(b.labels)).toEqual(Array.from(a.labels));
+    for (let i = 0; i < a.centres.data.length; i++) expect(b.centres.data[i]).toBeCloseTo(a.centres.data[i], 11);
+    expect(b.passes).toBe(a.passes);
+  });
+
+  it('a fit gives the same forecasts with the SIMD and the scalar kernels', () => {
+    const z = noise(12);
+    const v = Array.from({ length: 400 }, (_, t) => 5 + 2 * Math.sin((2 * Math.PI * t) / 24) + 0.3 * z());
+    const { x, y } = lagSamples(v, 7, 6);
+    const o = { ...DEFAULT_FIT_OPTIONS, nCentres: 9 };
+    const a = fitRbf(x, y, o);
+    useKernels('js');
+    const b = fitRbf(x, y, o);
+    expect(b.report.history.length).toBe(a.report.history.length);
+    const pa = predictRbf(a.model, x).y.data;
+    const pb = predictRbf(b.model, x).y.data;
+    for (let i = 0; i < pa.length; i++) expect(pb[i]).toBeCloseTo(pa[i], 8);
+  });
+});
