@@ -25,6 +25,9 @@ import { StatefulSet } from 'kubernetes-models/apps/v1';
 import { ConfigMap, Secret, Service } from 'kubernetes-models/v1';
 import { ConfigSchema } from '../../../src/config/schema.ts';
 import { resolveShard } from '../../../src/daemon/shard.ts';
+import { HttpServer } from '../../../src/daemon/http.ts';
+import { DaemonMetrics } from '../../../src/daemon/metrics.ts';
+import pino from 'pino';
 
 const root = path.resolve(path.dirname(fileURLToPath(import.meta.url)), '../../..');
 const deploy = path.join(root, 'deploy');
@@ -174,22 +177,54 @@ describe('deploy/Containerfile', () => {
     const pkg = JSON.parse(read('package.json'));
     const prod = new Set(Object.keys(pkg.dependencies ?? {}));
     expect(prod.has('tsx')).toBe(true);
-    const files: string[] = [];
-    const walk = (dir: string) => {
-      for (const e of readdirSync(dir)) {
-        const p = path.join(dir, e);
-        if (statSync(p).isDirectory()) walk(p);
-        else if (/\.(ts|mjs|js)$/.test(e)) files.push(p);
-      }
-    };
-    walk(path.join(root, 'src'));
-    walk(path.join(root, 'bin'));
-    const found = files.flatMap((f) => bareImports(readFileSync(f, 'utf8')).map((name) => ({ f, name })));
-    expect(found.some((x) => x.name === 'zod')).toBe(true); // the scan sees real imports
-    const missing = found.filter((x) => !prod.has(x.name)).map((x) => `${path.relative(root, x.f)}: ${x.name}`);
+    // What the image runs: the CLI launcher and the worker-thread entry files, and everything they
+    // import (build scripts such as src/model/wasm/build.ts are not reached and may use dev tools).
+    const entries = [path.join(root, 'bin/radcast.mjs'), ...listFiles(path.join(root, 'src')).filter((f) => /worker\.(mjs|ts)$/.test(f))];
+    const { files, packages } = importGraph(entries);
+    expect(files.some((f) => f.endsWith(path.join('src', 'cli', 'main.ts')))).toBe(true);
+    for (const f of ['src/daemon/shard.ts', 'src/forecast/engine.ts', 'src/store/embedded.ts']) expect(files).toContain(path.join(root, f));
+    expect(packages.has('zod')).toBe(true); // the walk reaches real imports
+    const missing = [...packages].filter((name) => !prod.has(name));
     expect(missing).toEqual([]);
   });
 });
+
+function listFiles(dir: string): string[] {
+  return readdirSync(dir).flatMap((e) => {
+    const p = path.join(dir, e);
+    return statSync(p).isDirectory() ? listFiles(p) : [p];
+  });
+}
+
+/**
+ * Relative modules a file may load: static and dynamic imports, `new URL('./x.mjs', import.meta.url)`
+ * (worker files) and module paths kept in string lists (the CLI's optional commands). Any quoted
+ * relative path to a .ts/.mjs/.js file counts, which errs towards checking more files.
+ */
+function relativeImports(src: string): string[] {
+  const out: string[] = [];
+  for (const m of src.matchAll(/^\s*(?:import|export)\s+type\s[^;]*?from\s*['"](\.[^'"]+)['"]/gm)) out.push(`type:${m[1]}`);
+  const typeOnly = new Set(out.map((s) => s.slice(5)));
+  out.length = 0;
+  for (const m of src.matchAll(/['"](\.\.?\/[^'"\s]+\.(?:ts|mjs|js))['"]/g)) if (!typeOnly.has(m[1])) out.push(m[1]);
+  return out;
+}
+
+/** Every file reachable from the entries through relative imports, and the packages they load. */
+function importGraph(entries: string[]): { files: string[]; packages: Set<string> } {
+  const seen = new Set<string>();
+  const packages = new Set<string>();
+  const queue = [...entries];
+  while (queue.length) {
+    const f = queue.pop()!;
+    if (seen.has(f) || !existsSync(f) || !/\.(ts|mjs|js)$/.test(f)) continue;
+    seen.add(f);
+    const src = readFileSync(f, 'utf8');
+    for (const name of bareImports(src)) packages.add(name);
+    for (const rel of relativeImports(src)) queue.push(path.resolve(path.dirname(f), rel));
+  }
+  return { files: [...seen], packages };
+}
 
 /** Package names a module loads at run time (type-only imports and node builtins left out). */
 function bareImports(src: string): string[] {
@@ -253,6 +288,33 @@ describe('deploy/healthcheck.mjs', () => {
     const r = await check(`http://127.0.0.1:${port}/healthz`);
     expect(r.code).toBe(1);
     expect(r.stderr).toContain('unreachable');
+  });
+
+  it('passes against radcast\'s own HTTP server, which also serves the k8s probe paths', async () => {
+    let ready = true;
+    const http = new HttpServer({
+      host: '127.0.0.1',
+      port: 0,
+      source: {
+        statuses: () => [],
+        readiness: async () => ({ store: { ok: ready } }),
+        chartData: async () => null,
+      },
+      metrics: new DaemonMetrics({ defaultMetrics: false }),
+      logger: pino({ level: 'silent' }),
+    });
+    const addr = await http.start();
+    try {
+      const url = `http://127.0.0.1:${addr.port}`;
+      expect((await check(`${url}/healthz`)).code).toBe(0);
+      expect((await fetch(`${url}/readyz`)).status).toBe(200);
+      ready = false;
+      expect((await fetch(`${url}/readyz`)).status).toBe(503);
+      // Liveness stays green while the store is away: the pod is not restarted for a store outage.
+      expect((await check(`${url}/healthz`)).code).toBe(0);
+    } finally {
+      await http.stop();
+    }
   });
 
   it('defaults to the port of the config schema', () => {
