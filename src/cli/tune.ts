@@ -244,12 +244,13 @@ export async function runTuneCommand(ctx: CliContext, opts: TuneCliOptions, deps
     if (!showBar) return;
     const payload = {
       combos: `${p.candidatesDone}/${p.candidatesTotal} settings`,
-      eta: p.etaMs === null ? 'estimating' : `${formatMs(p.etaMs)} left`,
+      // Not "eta": cli-progress fills its own {eta} from the bar's rate, which would hide this one.
+      left: p.etaMs === null ? 'estimating time left' : `${formatMs(p.etaMs)} left`,
       budget: p.budgetLeftMs === null ? '' : ` | budget ${formatMs(p.budgetLeftMs)}`,
     };
     if (!bar) {
       bar = new cliProgress.SingleBar(
-        { format: 'tune {bar} {percentage}% | {combos} | {value}/{total} origins | {eta}{budget}', stream: process.stderr, hideCursor: true, clearOnComplete: true, fps: 5 },
+        { format: 'tune {bar} {percentage}% | {combos} | {value}/{total} origins | {left}{budget}', stream: process.stderr, hideCursor: true, clearOnComplete: true, fps: 5 },
         cliProgress.Presets.shades_classic,
       );
       bar.start(p.originsTotal, p.originsDone, payload);
@@ -317,7 +318,7 @@ export async function runTuneCommand(ctx: CliContext, opts: TuneCliOptions, deps
     const bestJson = best && keys ? { id: best.id, label: best.label, settings: Object.fromEntries(keys.all.map((c) => [c.key, c.value])), changes: keys.changed.map((c) => ({ key: c.key, from: c.from, to: c.value })) } : undefined;
     ctx.io.out(JSON.stringify(tuneJson(result, { ...(bestJson ? { best: bestJson } : {}), snippet, written }), null, 2) + '\n');
   } else {
-    ctx.io.out(`tune ${resolved.name}: ${result.ranking.length} settings ranked in ${formatMs(result.elapsedMs)} (${result.threads > 0 ? `${result.threads} threads over settings` : `${result.originWorkers} workers over origins`}, seed ${seed})\n\n`);
+    ctx.io.out(`tune ${resolved.name}: ${result.ranking.length} settings ranked in ${formatMs(result.elapsedMs)} (${result.threads > 0 ? `${result.threads} threads over settings` : result.originWorkers > 0 ? `${result.originWorkers} workers over origins` : 'in the main thread'}, seed ${seed})\n\n`);
     ctx.io.out(formatTuneTable(result, { ...(topOpt !== undefined ? { top: topOpt } : {}) }));
     if (best && keys) {
       ctx.io.out(`\nBest settings for the entry of ${resolved.name} (paste under "- name: ${resolved.name}"${keys.changed.length ? '' : '; the config already has them'}):\n\n`);
