@@ -90,6 +90,7 @@ function jsData(N: number, d: number): { x: Dense; y: Dense } {
 
 interface RefResult {
   median_s: number;
+  cpu_median_s: number;
   lloyd_passes: number[];
 }
 
@@ -107,15 +108,25 @@ function runReference(impl: 'own' | 'sklearn', dataDir: string, N: number, d: nu
   }
 }
 
-function timeFits(n: number, f: () => void): number[] {
-  f(); // warm-up (JIT, caches)
-  const t: number[] = [];
+/** Wall and CPU milliseconds of n runs after one warm-up run (JIT, caches). */
+function timeFits(n: number, f: () => void): { wall: number[]; cpu: number[] } {
+  f();
+  const wall: number[] = [];
+  const cpu: number[] = [];
   for (let i = 0; i < n; i++) {
+    const c0 = process.cpuUsage();
     const t0 = performance.now();
     f();
-    t.push(performance.now() - t0);
+    wall.push(performance.now() - t0);
+    const c = process.cpuUsage(c0);
+    cpu.push((c.user + c.system) / 1000);
   }
-  return t;
+  return { wall, cpu };
+}
+
+/** Load average over the last minute per core: above ~1 other work shares the cores and wall times grow. */
+function loadPerCore(): string {
+  return (os.loadavg()[0] / os.cpus().length).toFixed(2);
 }
 
 function pad(s: string | number, w: number): string {
@@ -140,26 +151,30 @@ export async function run(argv: string[]): Promise<void> {
     }
     const fromPython = source.startsWith('gen_data');
     console.log(`data: ${source}; runs per cell: ${runs} (+1 warm-up); H=${H}; kernel: ${distanceKernels().active}`);
-    console.log('times are medians in ms; ratio = reference / radcast (>1: radcast faster); warm/cold = cold / warm');
+    console.log('medians in ms, wall (cpu); ratio = reference / radcast on wall (cpu) time, >1: radcast faster; cold/warm likewise');
+    console.log(`load per core at start: ${loadPerCore()} (above ~1 the machine is shared and wall times are inflated; compare cpu)`);
     const head = ['N', 'd', 'K', 'cold', 'passes', 'warm', 'passes', 'cold/warm'];
     const refs = refMode === 'both' ? ['own', 'sklearn'] : refMode === 'none' || !fromPython ? [] : [refMode];
     for (const r of refs) head.push(`ref ${r}`, 'ratio');
-    console.log(head.map((h, i) => pad(h, i < 3 ? 5 : 10)).join(' '));
+    console.log(head.map((h, i) => pad(h, i < 3 ? 5 : i === 4 || i === 6 ? 6 : 15)).join(' '));
+    const wc = (w: number, c: number, digits = 1): string => `${w.toFixed(digits)} (${c.toFixed(digits)})`;
     for (const [N, d, K] of grid) {
       const { x, y } = fromPython
         ? { x: load(path.join(dataDir, `X_${N}_${d}.f64`), d), y: load(path.join(dataDir, `Y_${N}.f64`), H) }
         : jsData(N, d);
       const o: FitOptions = { ...DEFAULT_FIT_OPTIONS, nCentres: K };
       let coldPasses = 0;
-      const cold = median(timeFits(runs, () => (coldPasses = fitRbf(x, y, o).report.kmeansPasses)));
+      const coldT = timeFits(runs, () => (coldPasses = fitRbf(x, y, o).report.kmeansPasses));
       const prev = fitRbf(rows(x, 0, N - 24), rows(y, 0, N - 24), o).model;
       let warmPasses = 0;
-      const warm = median(timeFits(runs, () => (warmPasses = fitRbf(x, y, { ...o, warmStart: prev }).report.kmeansPasses)));
-      const cells = [pad(N, 5), pad(d, 5), pad(K, 5), pad(cold.toFixed(1), 10), pad(coldPasses, 10), pad(warm.toFixed(1), 10), pad(warmPasses, 10), pad((cold / warm).toFixed(2), 10)];
+      const warmT = timeFits(runs, () => (warmPasses = fitRbf(x, y, { ...o, warmStart: prev }).report.kmeansPasses));
+      const cold = median(coldT.wall), coldC = median(coldT.cpu);
+      const warm = median(warmT.wall), warmC = median(warmT.cpu);
+      const cells = [pad(N, 5), pad(d, 5), pad(K, 5), pad(wc(cold, coldC), 15), pad(coldPasses, 6), pad(wc(warm, warmC), 15), pad(warmPasses, 6), pad(wc(cold / warm, coldC / warmC, 2), 15)];
       for (const impl of refs) {
         const r = runReference(impl as 'own' | 'sklearn', dataDir, N, d, K, runs);
-        if (typeof r === 'string') cells.push(pad(r, 10), pad('-', 10));
-        else cells.push(pad((r.median_s * 1e3).toFixed(1), 10), pad((r.median_s * 1e3 / cold).toFixed(2), 10));
+        if (typeof r === 'string') cells.push(pad(r, 15), pad('-', 15));
+        else cells.push(pad(wc(r.median_s * 1e3, r.cpu_median_s * 1e3), 15), pad(wc((r.median_s * 1e3) / cold, (r.cpu_median_s * 1e3) / coldC, 2), 15));
       }
       console.log(cells.join(' '));
     }
@@ -168,16 +183,19 @@ export async function run(argv: string[]): Promise<void> {
   }
 
   // Distance pass throughput: 2 N K d flops per pass (one multiply and one add per term of x.c).
-  console.log('\nk-means distance pass |x|^2 + |c|^2 - 2 x.c (median of 15 passes)');
-  console.log(['N', 'd', 'K', 'kernel', 'ms/pass', 'GFLOP/s'].map((h) => pad(h, 8)).join(' '));
+  console.log('\nk-means distance pass |x|^2 + |c|^2 - 2 x.c (median of 15 passes; GFLOP/s = 2 N K d / time, on wall and cpu time)');
+  console.log(`load per core: ${loadPerCore()}`);
+  console.log(['N', 'd', 'K', 'kernel', 'ms/pass', 'GFLOP/s', 'cpu GF/s'].map((h) => pad(h, 8)).join(' '));
   const k = distanceKernels();
   for (const [N, d, K] of quick ? [[8760, 40, 64]] : [[1344, 40, 32], [8760, 16, 64], [8760, 40, 64], [8760, 40, 128]]) {
     const { x } = jsData(N, d);
     const c = x.data.slice(0, K * d);
     for (const [name, fn] of k.all) {
       const t = timeFits(15, () => fn(x.data, N, d, c, K));
-      const ms = median(t);
-      console.log([pad(N, 8), pad(d, 8), pad(K, 8), pad(name, 8), pad(ms.toFixed(3), 8), pad(((2 * N * K * d) / (ms * 1e6)).toFixed(2), 8)].join(' '));
+      const ms = median(t.wall);
+      const cms = median(t.cpu);
+      const gf = (v: number): string => ((2 * N * K * d) / (v * 1e6)).toFixed(2);
+      console.log([pad(N, 8), pad(d, 8), pad(K, 8), pad(name, 8), pad(ms.toFixed(3), 8), pad(gf(ms), 8), pad(gf(cms), 8)].join(' '));
     }
   }
 }
