@@ -126,7 +126,10 @@ export interface ClockedDaemon {
   daemon: Daemon;
   clock: ManualClock;
   base: string;
-  /** Advance the clock by one hour (firing cron ticks) and wait until every cycle it started finished. */
+  /**
+   * Advance the clock by one hour (firing cron ticks) and wait until every cycle it started
+   * finished. Start the clock a minute or two before a tick minute (e.g. hh:04 for "5 * * * *").
+   */
   hour(): Promise<void>;
   get(path: string): Promise<{ status: number; text: string }>;
 }
@@ -143,7 +146,11 @@ export async function startClockedDaemon(opts: { loaded: LoadedConfig; logger: L
     clock,
     base,
     async hour() {
-      await clock.advance(HOUR);
+      // Fire the tick and let every cycle it queued finish while the clock is still in the tick's
+      // hour (a cycle reads the clock when it starts), then move on to the same minute an hour on.
+      await clock.advance(2 * 60_000);
+      await daemon.scheduler.flush();
+      await clock.advance(HOUR - 2 * 60_000);
       await daemon.scheduler.flush();
     },
     async get(path: string) {

@@ -111,7 +111,7 @@ describe('InfluxDB 1.x killed mid-cycle and restarted', () => {
 
     const file = writeConfig(
       dir,
-      daemonDoc(dir, { kind: 'influxdb', influxdb: { url: proxy.url, api: 'v1', database: 'oskaveld', timeout: '2s', flushInterval: '100ms', maxRetryDelay: '1s' } }),
+      daemonDoc(dir, { kind: 'influxdb', influxdb: { url: proxy.url, api: 'v1', database: 'oskaveld', timeout: '10s', flushInterval: '100ms', maxRetryDelay: '1s' } }),
     );
     const loaded = loadOrThrow(file);
     const cap = captureLogger('info');
@@ -178,7 +178,7 @@ describe('VictoriaMetrics killed mid-cycle and restarted (v2 write path)', () =>
     const env = { RADCAST_TEST_TOKEN: 'vm-accepts-any-token' };
     const file = writeConfig(
       dir,
-      daemonDoc(dir, { kind: 'influxdb', influxdb: { url: vm.url, api: 'v2', org: 'oskaveld', bucket: 'plant', tokenEnv: 'RADCAST_TEST_TOKEN', timeout: '2s', flushInterval: '100ms', maxRetryDelay: '1s' } }),
+      daemonDoc(dir, { kind: 'influxdb', influxdb: { url: vm.url, api: 'v2', org: 'oskaveld', bucket: 'plant', tokenEnv: 'RADCAST_TEST_TOKEN', timeout: '10s', flushInterval: '100ms', maxRetryDelay: '1s' } }),
     );
     const loaded = loadOrThrow(file);
     const cap = captureLogger('info');
