@@ -47,7 +47,7 @@ export class CycleDriftAssessor implements DriftAssessor {
       series: input.series,
       prior: input.previous,
       matured: input.matured.map((m) => ({ t: m.t, lead: m.lead, scaledError: m.scaledError })),
-      novelty: input.novelty !== null ? [{ t: input.nowMs, activation: input.novelty }] : [],
+      novelty: [...(input.recentNovelty ?? []), ...(input.novelty !== null ? [{ t: input.nowMs, activation: input.novelty }] : [])],
       lastReadingAt: input.lastReadingAt,
       now: input.nowMs,
       stepMs: input.resolved.settings.stepMs,

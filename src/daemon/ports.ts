@@ -61,6 +61,8 @@ export interface FitRequest {
   warm: FittedForecaster | null;
   /** Compute hold-out residuals (seed of the bands when none are stored yet). */
   holdout: boolean;
+  /** Also the novelty of the inputs at the steps before the origin, this many steps back (drift novelty window). */
+  noveltySteps?: number;
 }
 
 export interface FitResult {
@@ -72,6 +74,8 @@ export interface FitResult {
   predictMs: number;
   /** Hold-out residuals of the fit, when requested and computable. */
   holdout?: HoldoutResiduals;
+  /** Novelty (largest activation) of the inputs at the noveltySteps steps before the origin, oldest first. */
+  recentNovelty?: Array<{ t: number; activation: number }>;
 }
 
 /** Runs fitAt + forecastAt, inline or on a worker thread. */
@@ -104,6 +108,8 @@ export interface DriftInput {
   matured: MaturedError[];
   /** Novelty of the input of the forecast issued this cycle (null when none was issued). */
   novelty: number | null;
+  /** Novelty of the inputs at the steps before this cycle's origin (so the share does not depend on the refit schedule). */
+  recentNovelty?: Array<{ t: number; activation: number }>;
   /** Baseline scaled-error level from the backtest / hold-out (MASE), when known. */
   baselineMase: number | null;
   /** What getDriftState returned. */
