@@ -114,7 +114,11 @@ export class PoolFitter implements Fitter {
     return reply.result;
   }
 
+  /**
+   * End the worker threads. Called after the scheduler stopped: every cycle the shutdown waited
+   * for is done, so what still runs belongs to an abandoned cycle and is cut off.
+   */
   async stop(): Promise<void> {
-    await this.#pool.close({ force: false });
+    await this.#pool.destroy();
   }
 }
