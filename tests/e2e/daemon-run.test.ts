@@ -7,7 +7,12 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { spawn, type ChildProcessWithoutNullStreams } from 'node:child_process';
 import { readFileSync, writeFileSync } from 'node:fs';
 import path from 'node:path';
+import { mkdtempSync, rmSync } from 'node:fs';
+import os from 'node:os';
+import { stringify } from 'yaml';
 import { ROOT, demoFixture, logLines, type DemoFixture } from './demo-fixture.ts';
+import { EmbeddedStore } from '../../src/store/embedded.ts';
+import { HOUR, syntheticLoad } from '../unit/daemon/fakes.ts';
 
 let fx: DemoFixture;
 beforeAll(() => {
@@ -69,6 +74,54 @@ describe('radcast run (process)', () => {
       expect(err).toBe('');
     } finally {
       if (child.exitCode === null) child.kill('SIGKILL');
+    }
+  });
+});
+
+describe('radcast run: SIGTERM during a running cycle', () => {
+  it('lets the running cycle finish and write, then exits 0', async () => {
+    const dir = mkdtempSync(path.join(os.tmpdir(), 'radcast-run-'));
+    try {
+      // Fresh readings up to the current hour, so the first cycle really fits (invented test data).
+      const now = Date.now();
+      const end = Math.floor(now / HOUR) * HOUR;
+      const store = new EmbeddedStore({ path: path.join(dir, 'store.db') });
+      store.writeReadings('oskaveld-north', syntheticLoad({ fromMs: end - 40 * 24 * HOUR, toMs: end }));
+      store.close();
+      const config = path.join(dir, 'radcast.yaml');
+      writeFileSync(
+        config,
+        stringify({
+          store: { kind: 'embedded', embedded: { path: 'store.db' } },
+          state: { path: 'state.db' },
+          daemon: { concurrency: 1, shutdownTimeout: '60s', watchConfig: false },
+          defaults: { window: '3w', centres: 8, lags: ['1-24', 168], drift: { staleAfter: '6h' } },
+          series: [{ name: 'oskaveld-north' }],
+        }),
+      );
+      const child = spawn(process.execPath, [path.join(ROOT, 'bin/radcast.mjs'), 'run', '--config', config, '--port', '0', '--workers', '1'], { cwd: ROOT, stdio: ['ignore', 'pipe', 'pipe'] });
+      let out = '';
+      child.stdout.on('data', (d) => (out += d));
+      child.stderr.on('data', (d) => (out += d));
+      const exited = new Promise<number | null>((resolve) => child.on('close', (code) => resolve(code)));
+      try {
+        await waitFor(() => out, /"msg":"radcast daemon started"/, 60_000);
+        child.kill('SIGTERM'); // the first cycle (a cold fit on a worker) is running now
+        expect(await exited).toBe(0);
+        const lines = logLines(out);
+        const stopping = lines.find((l) => typeof l.msg === 'string' && (l.msg as string).startsWith('shutting down'));
+        expect(stopping?.running).toEqual(['oskaveld-north']);
+        expect(lines.at(-1)).toMatchObject({ msg: 'radcast daemon stopped', finished: 1, abandoned: 0 });
+        const check = new EmbeddedStore({ path: path.join(dir, 'store.db') });
+        const latest = await check.readLatestForecast('oskaveld-north');
+        check.close();
+        expect(latest?.issuedAt).toBe(end - HOUR);
+        expect(latest?.points).toHaveLength(24);
+      } finally {
+        if (child.exitCode === null) child.kill('SIGKILL');
+      }
+    } finally {
+      rmSync(dir, { recursive: true, force: true });
     }
   });
 });
