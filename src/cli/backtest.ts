@@ -11,14 +11,12 @@ import { writeFileSync } from 'node:fs';
 import { resolve } from 'node:path';
 import type { Command } from 'commander';
 import cliProgress from 'cli-progress';
-import type { ResolvedSeries } from '../config/resolve.ts';
 import { toSteps } from '../config/duration.ts';
 import { loadSecrets } from '../config/secrets.ts';
 import type { LoadedConfig } from '../config/load.ts';
-import { openSeriesStore, EmbeddedStore } from '../store/index.ts';
+import { openSeriesStore } from '../store/index.ts';
 import type { SeriesStore } from '../store/types.ts';
-import { regularize } from '../series/index.ts';
-import type { RegularSeries } from '../series/types.ts';
+import { historyStepsFor, loadBacktestInputs } from '../evaluate/load-series.ts';
 import { backtest, backtestJson, formatStep, modelForecasts, type BacktestProgress, type BacktestResult } from '../evaluate/backtest.ts';
 import { renderBacktestReport } from '../evaluate/report.ts';
 import type { MetricSet } from '../evaluate/metrics.ts';
@@ -90,26 +88,6 @@ function stepsOption(ctx: CliContext, v: string | undefined, stepMs: number, wha
   return r.value;
 }
 
-/** Reads and regularises a series and its inputs over [startMs, endMs). */
-async function readGrid(store: SeriesStore, r: ResolvedSeries, startMs: number, endMs: number): Promise<{ target: RegularSeries; exo: Record<string, RegularSeries> }> {
-  const st = r.settings;
-  const grid = (readings: Awaited<ReturnType<SeriesStore['readReadings']>>, name: string) =>
-    regularize(readings, { stepMs: st.stepMs, startMs, endMs, aggregation: st.regularize.aggregation, duplicates: st.regularize.duplicates, maxFillSteps: st.regularize.maxFillSteps, series: name });
-  const target = grid(await store.readReadings(r.source, startMs, endMs), r.name);
-  const exo: Record<string, RegularSeries> = {};
-  for (const e of r.exogenous) exo[e.name] = grid(await store.readReadings(e.source, startMs, endMs), e.name);
-  return { target, exo };
-}
-
-/** Newest reading time of a series: from the embedded store's index, else the current time. */
-function newestMs(store: SeriesStore, r: ResolvedSeries, nowMs: number): number | null {
-  if (store instanceof EmbeddedStore) {
-    const ext = store.readingsExtent(r.source.name);
-    return ext ? ext.lastMs : null;
-  }
-  return nowMs;
-}
-
 export interface RunBacktestsOptions {
   series?: string;
   workers?: number;
@@ -139,17 +117,11 @@ export async function runBacktests(loaded: LoadedConfig, store: SeriesStore, opt
       const st = r.settings;
       const spanSteps = opts.spanSteps ?? r.backtest.spanSteps;
       const everySteps = opts.everySteps ?? r.backtest.everySteps;
-      const last = newestMs(store, r, opts.nowMs ?? Date.now());
-      if (last === null) {
-        errors.push({ series: r.name, code: 'NO_READINGS', message: `no readings of ${r.name} in the store`, hint: `load them first, e.g. radcast import FILE.csv --series ${r.name} --config FILE` });
-        continue;
-      }
-      // Enough history for the first origin's window (and the windows of inputs forecast on their own).
-      let reach = st.windowSteps;
-      for (const e of r.exogenous) if (e.atTarget && exoSettings[e.name]) reach = Math.max(reach, exoSettings[e.name].windowSteps);
-      const endMs = Math.floor(last / st.stepMs) * st.stepMs + st.stepMs;
-      const startMs = endMs - (reach + spanSteps + st.features.horizon + 1) * st.stepMs;
-      const { target, exo } = await readGrid(store, r, startMs, endMs);
+      // Same reading and regularising as `radcast tune` (src/evaluate/load-series.ts); the range
+      // covers the first origin's window, the windows of inputs forecast on their own, the span and
+      // one horizon of actuals (plus one step of margin).
+      const historySteps = historyStepsFor(r, spanSteps, { configured: loaded.series }) + 1;
+      const { target, exo } = await loadBacktestInputs(store, r, { historySteps, configured: loaded.series, now: () => opts.nowMs ?? Date.now() });
       const res = await backtest(target, exo, st, {
         spanSteps,
         everySteps,

@@ -106,3 +106,25 @@ export function renderConfigReference(): string {
   out.push('');
   return out.join('\n');
 }
+
+export const README_REFERENCE_START = '<!-- config-reference:start (generated from src/config/schema.ts by `npx tsx scripts/gen-config-doc.ts`; do not edit by hand) -->';
+export const README_REFERENCE_END = '<!-- config-reference:end -->';
+
+/**
+ * The README carries the same reference as docs/config-reference.md, one heading level deeper.
+ * Returns the README text with the section between the markers replaced (markers appended at the
+ * end when missing).
+ */
+export function spliceReadmeReference(readme: string, reference: string): string {
+  const body = reference
+    .split('\n')
+    .filter((l) => !l.startsWith('<!--'))
+    .map((l) => (l.startsWith('#') ? `#${l}` : l))
+    .join('\n')
+    .trim();
+  const block = `${README_REFERENCE_START}\n${body}\n${README_REFERENCE_END}`;
+  const a = readme.indexOf(README_REFERENCE_START.slice(0, 28));
+  const b = readme.indexOf(README_REFERENCE_END);
+  if (a < 0 || b < a) return `${readme.trimEnd()}\n\n${block}\n`;
+  return readme.slice(0, a) + block + readme.slice(b + README_REFERENCE_END.length);
+}

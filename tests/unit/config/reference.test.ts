@@ -1,12 +1,18 @@
 import { describe, expect, it } from 'vitest';
 import { readFileSync } from 'node:fs';
-import { renderConfigReference } from '../../../src/config/doc.ts';
+import { renderConfigReference, spliceReadmeReference } from '../../../src/config/doc.ts';
 import { ConfigSchema } from '../../../src/config/schema.ts';
 
 describe('generated config reference', () => {
   it('the committed docs/config-reference.md matches the schema (run `npx tsx scripts/gen-config-doc.ts` to refresh)', () => {
     const committed = readFileSync(new URL('../../../docs/config-reference.md', import.meta.url), 'utf8');
     expect(committed).toBe(renderConfigReference());
+  });
+
+  it('the README carries the same generated reference between its markers', () => {
+    const readme = readFileSync(new URL('../../../README.md', import.meta.url), 'utf8');
+    expect(readme).toContain('<!-- config-reference:start');
+    expect(spliceReadmeReference(readme, renderConfigReference())).toBe(readme);
   });
 
   it('documents every option: each key of the schema appears with a doc line', () => {
