@@ -2,7 +2,13 @@
 import type { Dense } from './types.ts';
 import { ModelError } from './errors.ts';
 
-/** Checks that `m` is a well-formed Dense matrix with finite entries. */
+/**
+ * Largest magnitude accepted: squared distances of larger values overflow to Infinity. Features
+ * are expected standardised (order 1); 1e150 only guards against garbage.
+ */
+export const MAX_ABS_INPUT = 1e150;
+
+/** Checks that `m` is a well-formed Dense matrix with finite entries of sane magnitude. */
 export function checkDense(m: Dense, where: string): void {
   if (m === null || typeof m !== 'object' || !(m.data instanceof Float64Array)) {
     throw new ModelError('BAD_SHAPE', 'expected a Dense matrix with a Float64Array data field', { where }, 'build inputs with Float64Array and explicit rows/cols');
@@ -16,10 +22,13 @@ export function checkDense(m: Dense, where: string): void {
   }
   for (let i = 0; i < data.length; i++) {
     const v = data[i];
-    if (!Number.isFinite(v)) {
+    if (!(Math.abs(v) <= MAX_ABS_INPUT)) {
       const row = Math.floor(i / cols);
       const col = i - row * cols;
-      throw new ModelError('NON_FINITE', `value ${v} is not finite`, { where, row, col, value: String(v) }, 'fill or drop missing steps before fitting or predicting');
+      if (!Number.isFinite(v)) {
+        throw new ModelError('NON_FINITE', `value ${v} is not finite`, { where, row, col, value: String(v) }, 'fill or drop missing steps before fitting or predicting');
+      }
+      throw new ModelError('OUT_OF_RANGE', `value ${v} is beyond ±${MAX_ABS_INPUT} (its square overflows)`, { where, row, col, value: String(v) }, 'standardise features and targets before fitting');
     }
   }
 }

@@ -7,6 +7,7 @@ export type ModelErrorCode =
   | 'BAD_SHAPE'
   | 'DIMENSION_MISMATCH'
   | 'NON_FINITE'
+  | 'OUT_OF_RANGE'
   | 'TOO_FEW_SAMPLES'
   | 'BAD_OPTION'
   | 'SINGULAR_SYSTEM'

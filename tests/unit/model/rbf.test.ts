@@ -216,6 +216,8 @@ describe('bad input', () => {
     const xn = { ...x, data: x.data.slice() };
     xn.data[5] = Number.POSITIVE_INFINITY;
     expect(errorOf(() => predictRbf(m, xn)).detail).toMatchObject({ where: 'x', row: 1, col: 2 });
+    xn.data[5] = 1e200; // finite, but its square overflows
+    expect(errorOf(() => predictRbf(m, xn)).code).toBe('OUT_OF_RANGE');
   });
 
   it('a constant feature is handled: finite forecasts, zero linear weight, even with ridge 0', () => {
