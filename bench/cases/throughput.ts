@@ -36,7 +36,17 @@ const HISTORY_STEPS = 8 * 168 + 168 + 72;
 const TEMP_SERIES = 'oskaveld-outdoor-temp';
 
 v8.setFlagsFromString('--expose-gc');
-const gc = vm.runInNewContext('gc') as () => void;
+const rawGc = vm.runInNewContext('gc') as () => void;
+/** Full collections until the heap stops shrinking (one pass can leave weakly held garbage). */
+function gc(): void {
+  let before = Infinity;
+  for (let i = 0; i < 4; i++) {
+    rawGc();
+    const now = process.memoryUsage().heapUsed;
+    if (now >= before - 64 * 1024) break;
+    before = now;
+  }
+}
 
 function arg(argv: string[], name: string, fallback: string): string {
   const i = argv.indexOf(`--${name}`);
@@ -157,7 +167,10 @@ const mib = (b: number) => (b / 2 ** 20).toFixed(0);
 
 interface CycleRow {
   cycle: string;
-  summary: RunSummary;
+  /** The run summary without its per-series results (keeping those would itself grow the heap). */
+  summary: Omit<RunSummary, 'results'>;
+  /** Series whose refit started from the previous model. */
+  warmStarted: number;
   /** Process CPU time (all threads: main + fit workers) spent in the cycle, ms. */
   cpuMs: number;
   /** CPU time of the main thread (stores, regularize, scoring, message passing), ms; NaN when unknown. */
@@ -222,32 +235,53 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
       }
       const cpu0 = process.cpuUsage();
       const main0 = mainThreadCpuMs();
-      const summary = await runAll(rt.cycle, rt.owned, { concurrency, nowMs, clock });
+      const { results, ...summary } = await runAll(rt.cycle, rt.owned, { concurrency, nowMs, clock });
       const cpu = process.cpuUsage(cpu0);
       const main1 = mainThreadCpuMs();
       if (summary.failed + summary.stale > 0) {
         console.log(`  cycle ${c}: ${summary.failed} failed, ${summary.stale} stale: ${JSON.stringify(summary.byCode)}`);
-        const first = summary.results.find((r) => !r.ok);
+        const first = results.find((r) => !r.ok);
         if (first) console.log(`  first failure: ${first.series} ${first.error?.code} ${first.error?.message}`);
       }
+      const warmStarted = results.filter((x) => x.warmStarted).length;
+      results.length = 0; // keep only the aggregates: holding every forecast would grow the heap
       gc();
+      if (process.env.RADCAST_BENCH_SNAPSHOT_AT?.split(',').includes(String(c))) {
+        console.log(`  heap snapshot: ${v8.writeHeapSnapshot(path.join(os.tmpdir(), `radcast-bench-c${c}.heapsnapshot`))}`);
+      }
       const mem = process.memoryUsage();
-      rows.push({ cycle: c === 0 ? 'cold' : `warm ${c}`, summary, cpuMs: (cpu.user + cpu.system) / 1000, mainCpuMs: main0 === null || main1 === null ? Number.NaN : main1 - main0, rss: mem.rss, heapAfterGc: mem.heapUsed });
+      rows.push({
+        cycle: c === 0 ? 'cold' : `warm ${c}`,
+        summary,
+        warmStarted,
+        cpuMs: (cpu.user + cpu.system) / 1000,
+        mainCpuMs: main0 === null || main1 === null ? Number.NaN : main1 - main0,
+        rss: mem.rss,
+        heapAfterGc: mem.heapUsed,
+      });
     }
     // The fitted forecasters are what a series keeps between cycles; they live in the state file.
     const stored = rt.stateStore.loadModel(series[0].name)?.model as unknown as { scaler?: { featureNames?: string[] } } | undefined;
     const nFeatures = stored?.scaler?.featureNames?.length;
+    const modelJsonBytes = stored ? JSON.stringify(stored).length : 0;
+    let tableBytes: { name: string; bytes: number }[] = [];
+    try {
+      rt.stateStore.db.pragma('wal_checkpoint(TRUNCATE)');
+      tableBytes = rt.stateStore.db.prepare('SELECT name, SUM(pgsize) AS bytes FROM dbstat GROUP BY name ORDER BY bytes DESC').all() as typeof tableBytes;
+    } catch {
+      // dbstat is a compile-time option of SQLite; without it only the file size is shown.
+    }
     await rt.close();
     gc();
 
     console.log(
-      ['cycle', 'wall s', 'series/s', 'CPU s', 'main CPU s', ...STAGES.map((s) => `${s} ms/series`), 'pool ms/series', 'ok', 'RSS MiB', 'heap MiB'].join(' | '),
+      ['cycle', 'wall s', 'series/s', 'CPU s', 'main CPU s', ...STAGES.map((s) => `${s} ms/series`), 'pool ms/series', 'ok', 'warm-started', 'RSS MiB', 'heap MiB'].join(' | '),
     );
     for (const r of rows) {
       const s = r.summary;
       const per = (ms: number) => fmt(ms / n, 1);
       console.log(
-        [r.cycle, fmt(s.wallMs / 1000, 2), fmt((n * 1000) / s.wallMs, 1), fmt(r.cpuMs / 1000, 1), fmt(r.mainCpuMs / 1000, 1), ...STAGES.map((st) => per(s.timings[st])), per(s.poolOverheadMs), `${s.ok}/${n}`, mib(r.rss), mib(r.heapAfterGc)].join(' | '),
+        [r.cycle, fmt(s.wallMs / 1000, 2), fmt((n * 1000) / s.wallMs, 1), fmt(r.cpuMs / 1000, 1), fmt(r.mainCpuMs / 1000, 1), ...STAGES.map((st) => per(s.timings[st])), per(s.poolOverheadMs), `${s.ok}/${n}`, String(r.warmStarted), mib(r.rss), mib(r.heapAfterGc)].join(' | '),
       );
     }
     const warm = rows.slice(1);
@@ -286,6 +320,14 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
           `state on disk ${fmt(stateBytes / n, 0)} B (model, residuals, ledger, drift state)` +
           (nFeatures ? `; the model has ${nFeatures} features` : ''),
       );
+      if (tableBytes.length) {
+        console.log(
+          `state file per series by table (B): ${tableBytes
+            .filter((t) => t.bytes / n >= 100)
+            .map((t) => `${t.name} ${fmt(t.bytes / n)}`)
+            .join(', ')}; one stored forecaster as JSON: ${modelJsonBytes} B`,
+        );
+      }
       console.log(`load average after: ${os.loadavg().map((l) => l.toFixed(1)).join(' ')}`);
       console.log(`target: 1000 series per warm cycle < 30 s on 2 cores -> ${n === 1000 ? (median < 30_000 ? 'met' : 'NOT met') : 'see N = 1000'}`);
     }
