@@ -27,6 +27,7 @@ export const DEFAULT_FIT_OPTIONS: Readonly<Required<Omit<FitOptions, 'warmStart'
   subsampleRows: 0,
   kmeansTol: 1e-4,
   warmMaxPasses: 3,
+  warmWidthIterations: 1,
   refitAllRows: true,
   ridgeSearch: true,
 });
@@ -68,6 +69,7 @@ function resolveOptions(opts: FitOptions): Required<Omit<FitOptions, 'warmStart'
   checkInt(o.subsampleRows, 'opts.subsampleRows', 0);
   checkNumber(o.kmeansTol, 'opts.kmeansTol', 0, Infinity);
   checkInt(o.warmMaxPasses, 'opts.warmMaxPasses', 1);
+  checkInt(o.warmWidthIterations, 'opts.warmWidthIterations', 0, 10000);
   if (typeof o.bias !== 'boolean') throw new ModelError('BAD_OPTION', 'bias must be true or false', { where: 'opts.bias', value: String(o.bias) }, 'set bias to a boolean');
   if (typeof o.ridgeSearch !== 'boolean') throw new ModelError('BAD_OPTION', 'ridgeSearch must be true or false', { where: 'opts.ridgeSearch', value: String(o.ridgeSearch) }, 'set ridgeSearch to a boolean');
   if (typeof o.refitAllRows !== 'boolean') throw new ModelError('BAD_OPTION', 'refitAllRows must be true or false', { where: 'opts.refitAllRows', value: String(o.refitAllRows) }, 'set refitAllRows to a boolean');
@@ -333,12 +335,21 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     for (let n = r0; n < r1; n++) for (let k = 0; k < K; k++) out[n * K + k] = Math.exp(-g[k] * d2[n * K + k]);
     return out;
   };
+  // Candidate Gaussian shrinkages: the whole grid, or on a warm start the previous choice and
+  // its grid neighbours (the choice rarely moves between refits an hour or a day apart).
+  const grid = RIDGE_GRID.filter((v) => v > o.ridge).concat([o.ridge]).sort((a, c) => a - c);
+  const prevRidge = warm?.gaussianRidge;
+  const at = prevRidge === undefined ? -1 : grid.indexOf(prevRidge);
+  const searchGrid = at < 0 ? grid : grid.slice(Math.max(0, at - 1), at + 2);
+  // A warm start begins from widths tuned by earlier fits: a few steps per refit keep tracking
+  // them, so the alternation is spread over the chain of refits.
+  const widthIterations = warm ? Math.min(o.widthIterations, o.warmWidthIterations) : o.widthIterations;
   const evaluate = (g: Float64Array, e: Float64Array, searchRidge: boolean): State => {
     const ePr = products(e, K, true, fy, nFY);
     const gTrain = assemble(ePr.train, fProd.train);
     const gVal = ePr.val && fProd.val ? assemble(ePr.val, fProd.val) : null;
     let best: { w: Float64Array; val: number; r: number } | null = null;
-    const candidates = searchRidge ? RIDGE_GRID.filter((v) => v > o.ridge).concat([o.ridge]).sort((a, c) => a - c) : [gaussianRidge];
+    const candidates = searchRidge ? searchGrid : [gaussianRidge];
     for (const r of candidates) {
       const w = choleskySolve(factor(gTrain.g, r).factor, gTrain.b, H);
       const val = gVal ? quadMse(gVal, w, yyVal, nVal) : NaN;
@@ -358,7 +369,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
   let step = FIRST_LOG_STEP;
   let spare: Float64Array = new Float64Array(nSamples * K);
 
-  for (let it = 1; it <= o.widthIterations; it++) {
+  for (let it = 1; it <= widthIterations; it++) {
     // Residuals of the current weights on the training rows: base = Y - F W_F, r = base - E W_E.
     const base = new Float64Array(nTrain * H);
     const pf = matmul(f.subarray(0, nTrain * nF), nTrain, nF, cur.wF, H);
@@ -460,6 +471,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     gammas: Array.from(cur.gammas),
     weights,
     seed: o.seed,
+    gaussianRidge,
   };
   const report: FitReport = {
     kmeansPasses: km.passes,

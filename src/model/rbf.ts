@@ -81,6 +81,9 @@ export function checkModel(m: RbfModel, where = 'model'): void {
       if (typeof v !== 'number' || !Number.isFinite(v) || (positive && !(v > 0))) bad(`value ${String(v)} at index ${i} is not a ${positive ? 'positive ' : ''}finite number`, `${field}[${i}]`, String(v));
     }
   };
+  if (m.gaussianRidge !== undefined && !(typeof m.gaussianRidge === 'number' && m.gaussianRidge >= 0 && Number.isFinite(m.gaussianRidge))) {
+    bad('must be a non-negative number', 'gaussianRidge', String(m.gaussianRidge));
+  }
   arr('centres', m.nCentres * m.nFeatures, false);
   arr('gammas', m.nCentres, true);
   arr('weights', (1 + m.nCentres + (m.linearTerms ? m.nFeatures : 0)) * m.nOutputs, false);

@@ -37,6 +37,7 @@ export function parseModel(json: string): RbfModel {
     weights: m.weights,
     seed: m.seed,
   };
+  if (m.gaussianRidge !== undefined) out.gaussianRidge = m.gaussianRidge;
   if (m.meta !== undefined) {
     if (m.meta === null || typeof m.meta !== 'object' || Array.isArray(m.meta)) {
       throw new ModelError('BAD_MODEL', 'meta must be an object', { where: 'model.meta' }, 'store metadata as a JSON object');

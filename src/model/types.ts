@@ -72,6 +72,8 @@ export interface FitOptions {
   kmeansTol?: number;
   /** Lloyd passes allowed when warm-started from a previous model's centres. Default 3. */
   warmMaxPasses?: number;
+  /** Width iterations allowed on a warm start (its widths were tuned by earlier fits). Default 1. */
+  warmWidthIterations?: number;
   /** After choosing widths on the validation tail, solve the final weights on all rows. Default true. */
   refitAllRows?: boolean;
   /**
@@ -96,6 +98,8 @@ export interface RbfModel {
   /** (1 + nCentres + (linearTerms ? nFeatures : 0)) x nOutputs, row-major: bias row, Gaussian rows, linear rows. */
   weights: number[];
   seed: number;
+  /** Relative ridge of the Gaussian weights chosen by the fit (a warm start searches near it). */
+  gaussianRidge?: number;
   /** Optional metadata set by callers (training span, feature scaling...). */
   meta?: Record<string, unknown>;
 }
