@@ -23,6 +23,7 @@ import type { RegularSeries } from '../series/types.ts';
 import { backtest, type BacktestResult } from '../evaluate/backtest.ts';
 import { renderBacktestReport } from '../evaluate/report.ts';
 import { MODEL_METHOD } from '../evaluate/backtest-chain.ts';
+import { addResiduals, createResidualPool, DEFAULT_RESIDUAL_CAPACITY, originPhase } from '../evaluate/bands.ts';
 import { openRuntime, type Runtime } from '../daemon/runtime.ts';
 import { runAll, type RunSummary } from '../daemon/runner.ts';
 import { describeError } from '../daemon/errors.ts';
@@ -187,15 +188,13 @@ export async function runDemo(
           });
         }
         // The backtest's matured forecasts seed the band residuals, as the daemon's own would.
-        const rows: Array<{ lead: number; t: number; residual: number }> = [];
+        const phases = r.settings.features.seasonSteps;
+        const pool = createResidualPool(r.settings.features.horizon, DEFAULT_RESIDUAL_CAPACITY, phases);
         for (const d of res.details) {
           const f = d.forecasts[MODEL_METHOD];
-          d.actual.forEach((a, h) => {
-            const e = a - f[h];
-            if (Number.isFinite(e)) rows.push({ lead: h + 1, t: d.originMs + (h + 1) * st, residual: e });
-          });
+          d.actual.forEach((a, h) => addResiduals(pool, h + 1, [a - f[h]], originPhase(d.originMs, st, phases)));
         }
-        await rt.state.addResiduals(r.name, rows, 336);
+        await rt.state.putResidualPool(r.name, pool);
         progress(`demo: backtest ${r.name}: ${res.origins} origins in ${((performance.now() - tb) / 1000).toFixed(1)} s`);
       } catch (err) {
         const e = describeError(err);

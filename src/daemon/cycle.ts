@@ -17,14 +17,14 @@ import type { ResolvedSeries } from '../config/resolve.ts';
 import type { ForecastBatch, ForecastPoint, HealthPoint, ScorePoint, SeriesStore, SourceSelector } from '../store/types.ts';
 import type { Reading, RegularSeries } from '../series/types.ts';
 import { regularize, lastValueIndex } from '../series/index.ts';
-import { addResiduals, bandsForForecast, DEFAULT_RESIDUAL_CAPACITY, originPhase, residualPoolFromRows } from '../evaluate/bands.ts';
+import { addResiduals, bandsForForecast, DEFAULT_RESIDUAL_CAPACITY, originPhase, type ResidualPool } from '../evaluate/bands.ts';
 import { MetricAccumulator, quantileKey, seasonalScale, type MetricSet } from '../evaluate/metrics.ts';
 import { systemClock, type Clock } from './clock.ts';
 import { Backoff } from './backoff.ts';
 import { DaemonError, canRetry, describeError, retryAfterMs, type ErrorRecord } from './errors.ts';
 import type { DaemonMetrics } from './metrics.ts';
 import { emptyTimings, type StageTimings } from './timings.ts';
-import type { CycleState, DriftAssessment, DriftAssessor, Fitter, IssuedStep, MaturedError, ResidualEntry } from './ports.ts';
+import type { CycleState, DriftAssessment, DriftAssessor, Fitter, IssuedStep, MaturedError } from './ports.ts';
 
 export type CycleOutcome = 'ok' | 'failed' | 'stale' | 'aborted';
 export type Stage = keyof StageTimings;
@@ -263,9 +263,8 @@ export class SeriesCycle {
       const capacity = this.#o.residualCapacity ?? DEFAULT_RESIDUAL_CAPACITY;
       const warm = await timed('prepare', () => state.getModel(r.name));
       const phases = s.features.seasonSteps;
-      const rows = await timed('prepare', () => state.getResiduals(r.name, capacity));
       // Residuals depend on the hour a forecast is issued at: the pool keeps each one's origin phase.
-      const pool = residualPoolFromRows(rows, { horizon: H, stepMs: step, phases, capacityPerLead: capacity });
+      const pool = await timed('prepare', () => state.getResidualPool(r.name, { horizon: H, phases, capacityPerLead: capacity }));
       const poolEmpty = pool.byLead.every((l) => l.length === 0);
       const wall0 = this.#clock.monotonicMs();
       let fr;
@@ -283,8 +282,8 @@ export class SeriesCycle {
       recentNovelty = fr.recentNovelty ?? [];
       baselineMase = baselineFromHoldout(fr.holdout, target, originIndex, s.windowSteps, s.features.seasonSteps);
 
-      // Seed rows for an empty pool: the fit's hold-out residuals (out of sample, before the origin).
-      const seed: ResidualEntry[] = [];
+      // An empty pool is seeded with the fit's hold-out residuals (out of sample, before the origin).
+      let seeded = false;
       const batch = await timed('predict', () => {
         if (poolEmpty && fr.holdout) {
           const ho = fr.holdout;
@@ -293,10 +292,9 @@ export class SeriesCycle {
             list.forEach((v, j) => {
               // Validation origins are consecutive steps from firstOrigin; list j is origin firstOrigin + (nOrigins - len + j).
               const o = ho.firstOrigin + (ho.nOrigins - list.length + j);
-              const t = target.startMs + (o + lead) * step;
               if (Number.isFinite(v)) {
-                seed.push({ lead, t, residual: v });
                 addResiduals(pool, lead, [v], originPhase(target.startMs + o * step, step, phases));
+                seeded = true;
               }
             });
           });
@@ -320,14 +318,13 @@ export class SeriesCycle {
         if (signal?.aborted) throw new DaemonError('SHUTDOWN_ABORTED', 'shutdown bound reached before the write', { series: r.name });
         await this.#writeWithRetry('forecast', () => store.writeForecast(batch));
         await state.putModel(r.name, fr.fitted, nowMs);
-        if (seed.length) await state.addResiduals(r.name, seed, capacity);
         await state.recordIssued(r.name, batch);
       });
       result.issuedAt = batch.issuedAt;
       result.forecast = batch;
 
       // ---- score ----
-      scoredErrors = await timed('score', () => this.#score(r, target, originIndex, result));
+      scoredErrors = await timed('score', () => this.#score(r, target, originIndex, result, pool, seeded));
     }
 
     // ---- drift + health ----
@@ -365,7 +362,7 @@ export class SeriesCycle {
    * Score every ledger step whose target time lies at or before the origin (its actual is known):
    * residuals per lead go to the band pool, scores per lead and overall (lead 0) to the store.
    */
-  async #score(r: ResolvedSeries, target: RegularSeries, originIndex: number, result: SeriesCycleResult): Promise<MaturedError[]> {
+  async #score(r: ResolvedSeries, target: RegularSeries, originIndex: number, result: SeriesCycleResult, pool: ResidualPool, seeded: boolean): Promise<MaturedError[]> {
     const { state, store } = this.#o;
     const s = r.settings;
     const H = s.features.horizon;
@@ -374,13 +371,17 @@ export class SeriesCycle {
     const originMs = target.startMs + originIndex * step;
     const due = await state.matured(r.name, originMs);
     const errors: MaturedError[] = [];
-    if (due.length === 0) return errors;
+    if (due.length === 0) {
+      if (seeded) await state.putResidualPool(r.name, pool);
+      return errors;
+    }
+    const phases = s.features.seasonSteps;
     const quantiles = s.quantiles;
     const keys = quantiles.map(quantileKey);
     const overall = new MetricAccumulator(quantiles);
     const byLead = new Map<number, MetricAccumulator>();
     const scales = new Map<number, number>();
-    const residuals: ResidualEntry[] = [];
+    let added = 0;
     const settled: IssuedStep[] = [];
     const bandVals = new Float64Array(quantiles.length);
     let expired = 0;
@@ -407,7 +408,8 @@ export class SeriesCycle {
       acc.add(actual, st.value, scale, bandVals);
       if (!Number.isFinite(actual)) continue;
       const e = actual - st.value;
-      residuals.push({ lead: st.lead, t: st.t, residual: e });
+      addResiduals(pool, st.lead, [e], originPhase(st.issuedAt, step, phases));
+      added++;
       errors.push({ t: st.t, lead: st.lead, error: e, scaledError: scale > 0 ? Math.abs(e) / scale : Number.NaN });
       newestT = Math.max(newestT, st.t);
     }
@@ -437,7 +439,7 @@ export class SeriesCycle {
       if (p) points.push(p);
     }
     if (points.length) await this.#writeWithRetry('scores', () => store.writeScores(points));
-    if (residuals.length) await state.addResiduals(r.name, residuals, this.#o.residualCapacity ?? DEFAULT_RESIDUAL_CAPACITY);
+    if (added > 0 || seeded) await state.putResidualPool(r.name, pool);
     await state.removeIssued(r.name, settled);
     result.scored = settled.length - expired;
     result.expired = expired;

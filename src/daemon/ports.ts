@@ -7,6 +7,7 @@
 import type { DriftState, ForecastBatch } from '../store/types.ts';
 import type { ResolvedSeries } from '../config/resolve.ts';
 import type { FittedForecaster, ForecastOutput, HoldoutResiduals } from '../forecast/engine.ts';
+import type { ResidualPool } from '../evaluate/bands.ts';
 import type { ForecastSettings } from '../forecast/types.ts';
 import type { RegularSeries } from '../series/types.ts';
 
@@ -36,10 +37,12 @@ export interface ResidualEntry {
 export interface CycleState {
   getModel(series: string): Promise<FittedForecaster | null>;
   putModel(series: string, fitted: FittedForecaster, atMs: number): Promise<void>;
-  /** The newest `perLead` residuals of each lead, oldest first (empty when none). */
-  getResiduals(series: string, perLead: number): Promise<ResidualEntry[]>;
-  /** Add residuals; only the newest `keepPerLead` per lead are kept. */
-  addResiduals(series: string, rows: ResidualEntry[], keepPerLead: number): Promise<void>;
+  /**
+   * The series' residual pool for the bands (evaluate/bands.ts), empty when there is none yet or
+   * when its shape (horizon, phases) no longer matches.
+   */
+  getResidualPool(series: string, shape: { horizon: number; phases: number; capacityPerLead: number }): Promise<ResidualPool>;
+  putResidualPool(series: string, pool: ResidualPool): Promise<void>;
   /** Ledger: record every step of the batch (idempotent per issue time + lead); also the series' latest forecast. */
   recordIssued(series: string, batch: ForecastBatch): Promise<void>;
   /** Ledger steps with target time <= upToMs, oldest target first. */

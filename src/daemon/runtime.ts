@@ -17,7 +17,7 @@ import { systemClock, type Clock } from './clock.ts';
 import { SeriesCycle } from './cycle.ts';
 import { CycleDriftAssessor } from './drift-adapter.ts';
 import { DaemonError } from './errors.ts';
-import { DaemonMetrics } from './metrics.ts';
+import { DaemonMetrics, type StoreWriteStats } from './metrics.ts';
 import { InlineFitter, PoolFitter } from './pool.ts';
 import type { Fitter } from './ports.ts';
 import { StateAdapter } from './state-adapter.ts';
@@ -61,6 +61,15 @@ export interface Runtime {
   close(): Promise<void>;
 }
 
+/** The write-buffer counters of a store adapter that has them (InfluxDB), for /metrics. */
+function storeWriteStats(store: SeriesStore): StoreWriteStats | null {
+  const stats = (store as { stats?: () => Partial<StoreWriteStats> }).stats;
+  if (typeof stats !== 'function') return null;
+  const st = stats.call(store);
+  if (typeof st.buffered !== 'number') return null;
+  return { store: store.kind, buffered: st.buffered, spooled: st.spooled ?? 0, dropped: st.dropped ?? 0, droppedForecast: st.droppedForecast ?? 0, rejected: st.rejected ?? 0, spooledTotal: st.spooledTotal ?? 0, replayed: st.replayed ?? 0 };
+}
+
 export function msOf(duration: string, fallbackMs: number): number {
   const r = parseDurationMs(duration);
   return r.ok ? r.value : fallbackMs;
@@ -82,6 +91,7 @@ export async function openRuntime(loaded: LoadedConfig, deps: RuntimeDeps): Prom
       secrets,
       logger: logger.child({ component: 'store' }),
       now: () => clock.now(),
+      durableWrites: true,
     }));
   let stateStore: StateStore;
   try {
@@ -90,7 +100,8 @@ export async function openRuntime(loaded: LoadedConfig, deps: RuntimeDeps): Prom
     if (!deps.store) await store.close().catch(() => undefined);
     throw err;
   }
-  const state = new StateAdapter(stateStore, logger);
+  const stepBySeries = new Map(loaded.series.map((s) => [s.name, s.settings.stepMs]));
+  const state = new StateAdapter(stateStore, logger, { stepOf: (n) => stepBySeries.get(n) ?? 3_600_000 });
   const workers = deps.workers ?? loaded.config.daemon.concurrency;
   const fitter: Fitter = deps.fitter ?? (workers > 0 ? new PoolFitter({ threads: workers }) : new InlineFitter());
   const hooked = loaded.series.filter((s) => s.drift.enabled && s.drift.webhook && secrets.webhookUrl(s.name));
@@ -115,6 +126,7 @@ export async function openRuntime(loaded: LoadedConfig, deps: RuntimeDeps): Prom
     },
   });
   metrics.bindPoolQueue(() => fitter.queued);
+  metrics.bindStoreStats(() => storeWriteStats(store));
   const cycle = new SeriesCycle({ store, state, fitter, logger, clock, metrics, drift });
   const shard = deps.shard ?? ALL_SERIES;
   const owned = filterOwned(shard, loaded.series, (s) => s.name);

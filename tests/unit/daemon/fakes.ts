@@ -1,7 +1,8 @@
 /** In-memory stand-ins for the store, the state store and the drift layer, for cycle tests. */
 import type { ForecastBatch, HealthPoint, ScorePoint, SeriesStore, SourceSelector } from '../../../src/store/types.ts';
 import type { Reading } from '../../../src/series/types.ts';
-import type { CycleState, IssuedStep, ResidualEntry } from '../../../src/daemon/ports.ts';
+import type { CycleState, IssuedStep } from '../../../src/daemon/ports.ts';
+import { createResidualPool, type ResidualPool } from '../../../src/evaluate/bands.ts';
 import type { FittedForecaster } from '../../../src/forecast/engine.ts';
 import { parseConfigObject } from '../../../src/config/load.ts';
 import type { ResolvedSeries } from '../../../src/config/resolve.ts';
@@ -56,7 +57,7 @@ export class MemoryStore implements SeriesStore {
 
 export class MemoryState implements CycleState {
   models = new Map<string, FittedForecaster>();
-  residuals = new Map<string, ResidualEntry[]>();
+  pools = new Map<string, ResidualPool>();
   ledger = new Map<string, Map<string, IssuedStep>>();
   latest = new Map<string, ForecastBatch>();
   drift = new Map<string, unknown>();
@@ -67,23 +68,16 @@ export class MemoryState implements CycleState {
   async putModel(series: string, fitted: FittedForecaster) {
     this.models.set(series, structuredClone(fitted));
   }
-  async getResiduals(series: string, perLead: number): Promise<ResidualEntry[]> {
-    const rows = [...(this.residuals.get(series) ?? [])].sort((a, b) => a.t - b.t);
-    const out: ResidualEntry[] = [];
-    for (const lead of new Set(rows.map((r) => r.lead))) out.push(...rows.filter((r) => r.lead === lead).slice(-perLead));
-    return out.sort((a, b) => a.t - b.t || a.lead - b.lead);
+  async getResidualPool(series: string, shape: { horizon: number; phases: number; capacityPerLead: number }): Promise<ResidualPool> {
+    const p = this.pools.get(series);
+    return p && p.horizon === shape.horizon && p.phases === shape.phases ? structuredClone(p) : createResidualPool(shape.horizon, shape.capacityPerLead, shape.phases);
   }
-  async addResiduals(series: string, rows: ResidualEntry[], keepPerLead: number) {
-    const byKey = new Map((this.residuals.get(series) ?? []).map((r) => [`${r.lead}|${r.t}`, r]));
-    for (const r of rows) byKey.set(`${r.lead}|${r.t}`, { ...r });
-    const kept: ResidualEntry[] = [];
-    const leads = new Set([...byKey.values()].map((r) => r.lead));
-    for (const lead of leads) kept.push(...[...byKey.values()].filter((r) => r.lead === lead).sort((a, b) => a.t - b.t).slice(-keepPerLead));
-    this.residuals.set(series, kept);
+  async putResidualPool(series: string, pool: ResidualPool) {
+    this.pools.set(series, structuredClone(pool));
   }
-  /** Residual rows of one lead, oldest first (for assertions). */
+  /** Residuals of one lead, oldest first (for assertions). */
   residualsOf(series: string, lead: number): number[] {
-    return (this.residuals.get(series) ?? []).filter((r) => r.lead === lead).sort((a, b) => a.t - b.t).map((r) => r.residual);
+    return [...(this.pools.get(series)?.byLead[lead - 1] ?? [])];
   }
   async recordIssued(series: string, batch: ForecastBatch) {
     const m = this.ledger.get(series) ?? new Map<string, IssuedStep>();

@@ -83,7 +83,8 @@ describe('HTTP endpoints', () => {
 
   it('/metrics follows the Prometheus text exposition format 0.0.4, also for a series name with quotes, backslashes and a newline', async () => {
     // Grammar from the Prometheus documentation, "Exposition formats" (text format 0.0.4):
-    // metric and label names, label values with \\, \" and \n escaped, a float value (or NaN/+Inf/-Inf).
+    // metric and label names, label values with \\, \" and \n escaped, a float value as Go's
+    // strconv.ParseFloat reads it (NaN and Inf in any case: prom-client prints an empty gauge as "Nan").
     const metrics = new DaemonMetrics();
     const nasty = 'sub "7"\\north\nline';
     metrics.recordCycle({ series: nasty, ok: false, errorCode: 'INPUT_STALE', finishedAtMs: 1_700_000_000_000, timings: emptyTimings(), totalMs: 1 });
@@ -92,7 +93,7 @@ describe('HTTP endpoints', () => {
     const text = await (await fetch(`${base}/metrics`)).text();
     const NAME = '[a-zA-Z_:][a-zA-Z0-9_:]*';
     const LABEL = `[a-zA-Z_][a-zA-Z0-9_]*="(?:[^"\\\\\\n]|\\\\[\\\\"n])*"`;
-    const sample = new RegExp(`^${NAME}(\\{${LABEL}(,${LABEL})*,?\\})? (-?[0-9.]+(e[-+]?[0-9]+)?|NaN|[+-]Inf)( -?[0-9]+)?$`);
+    const sample = new RegExp(`^${NAME}(\\{${LABEL}(,${LABEL})*,?\\})? (-?[0-9.]+(e[-+]?[0-9]+)?|[Nn][Aa][Nn]|[+-][Ii]nf)( -?[0-9]+)?$`);
     const typed = new Set<string>();
     for (const line of text.split('\n')) {
       if (line === '') continue;
