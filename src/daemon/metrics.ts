@@ -12,6 +12,20 @@ const SERIES_BUCKETS_S = [0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.
 /** Buckets for whole runs over all series (seconds). */
 const RUN_BUCKETS_S = [0.1, 0.5, 1, 2, 5, 10, 20, 30, 60, 120, 300, 600];
 
+/** Write-buffer counters of a store adapter that buffers (the InfluxDB adapter's stats()), read at scrape time. */
+export interface StoreWriteStats {
+  store: string;
+  /** Points waiting in memory and in the spool. */
+  buffered: number;
+  /** Of buffered: in the spool. */
+  spooled: number;
+  dropped: number;
+  droppedForecast: number;
+  rejected: number;
+  spooledTotal: number;
+  replayed: number;
+}
+
 export class DaemonMetrics {
   readonly registry: client.Registry;
   readonly cycleDuration: client.Histogram<'outcome'>;
@@ -34,6 +48,11 @@ export class DaemonMetrics {
   readonly reloadsTotal: client.Counter<'outcome'>;
   readonly nanRejectedTotal: client.Counter<'series'>;
   readonly poolQueue: client.Gauge<string>;
+  readonly storeBuffered: client.Gauge<'store' | 'where'>;
+  readonly storePointsDropped: client.Counter<'store' | 'kind'>;
+  readonly storePointsRejected: client.Counter<'store'>;
+  readonly storePointsSpooled: client.Counter<'store'>;
+  readonly storePointsReplayed: client.Counter<'store'>;
 
   constructor(opts: { defaultMetrics?: boolean } = {}) {
     const registry = new client.Registry();
@@ -134,10 +153,50 @@ export class DaemonMetrics {
         this.set(metrics.#poolQueued());
       },
     });
+    // Store write buffer: copied from the adapter's own counters at scrape time.
+    const storeStats = () => metrics.#storeStats();
+    this.storeBuffered = new client.Gauge({
+      name: 'radcast_store_buffered_points',
+      help: 'Points waiting to be confirmed by the store, in memory or in the durable spool (state file)',
+      labelNames: ['store', 'where'],
+      ...reg,
+      collect() {
+        const st = storeStats();
+        if (!st) return;
+        this.set({ store: st.store, where: 'memory' }, st.buffered - st.spooled);
+        this.set({ store: st.store, where: 'spool' }, st.spooled);
+      },
+    });
+    const counter = <L extends string>(name: string, help: string, labelNames: L[], values: (st: StoreWriteStats) => [Partial<Record<L, string>>, number][]) =>
+      new client.Counter<L>({
+        name,
+        help,
+        labelNames,
+        ...reg,
+        collect() {
+          const st = storeStats();
+          if (!st) return;
+          this.reset();
+          for (const [labels, v] of values(st)) this.inc({ store: st.store, ...labels } as Partial<Record<L, string | number>>, v);
+        },
+      });
+    this.storePointsDropped = counter('radcast_store_points_dropped_total', 'Points the store adapter dropped at a buffer bound (oldest forecasts first), by kind', ['store', 'kind'], (st) => [
+      [{ kind: 'forecast' }, st.droppedForecast],
+      [{ kind: 'other' }, st.dropped - st.droppedForecast],
+    ]);
+    this.storePointsRejected = counter('radcast_store_points_rejected_total', 'Points the store refused as invalid (not retried)', ['store'], (st) => [[{}, st.rejected]]);
+    this.storePointsSpooled = counter('radcast_store_points_spooled_total', 'Points written into the durable write spool (state file): while the store failed or a backlog waited, at the memory bound, at shutdown', ['store'], (st) => [[{}, st.spooledTotal]]);
+    this.storePointsReplayed = counter('radcast_store_points_replayed_total', 'Points left in the spool by an earlier run that the store has confirmed since this start', ['store'], (st) => [[{}, st.replayed]]);
     if (opts.defaultMetrics !== false) client.collectDefaultMetrics({ register: registry, prefix: 'radcast_' });
   }
 
   #poolQueued: () => number = () => 0;
+  #storeStats: () => StoreWriteStats | null = () => null;
+
+  /** Where the radcast_store_*_points metrics read the store adapter's write counters at scrape time (null: the store has none). */
+  bindStoreStats(fn: () => StoreWriteStats | null): void {
+    this.#storeStats = fn;
+  }
 
   /** Where radcast_fit_pool_queue reads the queue length at scrape time. */
   bindPoolQueue(fn: () => number): void {

@@ -9,6 +9,8 @@
  *   outbox           pending webhook notifications, kept until delivered
  *   cycles           series -> last attempt / success / error code; '*' = whole cycle
  *   kv               small JSON values for other components (backtest baselines, ...)
+ * The InfluxDB adapter's write spool (table write_spool, src/store/spool.ts) lives in the same file
+ * under its own schema component and connection.
  * All methods are synchronous (better-sqlite3) and each one is a single transaction of prepared
  * statements; `transaction(fn)` groups several calls into one commit (nested calls become
  * savepoints), which is how a whole cycle of 1000 series is written at once.

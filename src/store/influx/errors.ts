@@ -28,9 +28,11 @@ export type StoreErrorCode =
   /** An adapter option that cannot work (e.g. a measurement name line protocol cannot carry). */
   | 'OPTION_INVALID'
   /** The adapter was closed. */
-  | 'STORE_CLOSED';
+  | 'STORE_CLOSED'
+  /** The local write spool (state file) could not be read or written: disk full, file locked. */
+  | 'SPOOL_FAILED';
 
-const RETRYABLE: ReadonlySet<StoreErrorCode> = new Set(['STORE_UNREACHABLE', 'STORE_BUSY', 'STORE_DATABASE_MISSING']);
+const RETRYABLE: ReadonlySet<StoreErrorCode> = new Set(['STORE_UNREACHABLE', 'STORE_BUSY', 'STORE_DATABASE_MISSING', 'SPOOL_FAILED']);
 
 export interface StoreErrorOptions {
   series?: string;

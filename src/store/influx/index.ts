@@ -7,6 +7,7 @@ export { INFLUX_DEFAULTS, type InfluxStoreOptions, type InfluxV1Options, type In
 export { StoreError, type StoreErrorCode } from './errors.ts';
 export { Backoff, type BackoffOptions } from './backoff.ts';
 export type { OutboxStats } from './outbox.ts';
+export type { PointSpool, SpooledLine } from './spool.ts';
 export type { Logger as StoreLogger } from './log.ts';
 export { quantileField } from './schema.ts';
 

@@ -4,6 +4,7 @@
  * the adapter never reads the environment or files itself.
  */
 import type { Logger } from './log.ts';
+import type { PointSpool } from './spool.ts';
 
 /** Measurement names radcast writes (config `store.influxdb.measurements`). */
 export interface MeasurementNames {
@@ -22,8 +23,19 @@ interface CommonOptions {
   url: string;
   /** Timeout of one HTTP request (ms). */
   timeoutMs?: number;
-  /** Bound of points kept for retry; beyond it the oldest forecasts are dropped first (points). */
+  /**
+   * Bound of points waiting in memory (points). Beyond it they move to the spool; without a spool
+   * the oldest forecasts are dropped first.
+   */
   writeBufferPoints?: number;
+  /**
+   * Durable place for points the server has not confirmed (the factory passes a table in the
+   * state file). They move there when a send fails, at the memory bound and on close(), and are
+   * sent by the next instance on the same spool. The adapter closes it in close().
+   */
+  spool?: PointSpool;
+  /** Bound of points in the spool; beyond it the oldest forecasts are dropped first (points). */
+  spoolMaxPoints?: number;
   /** Points per write request. */
   batchSize?: number;
   /** Longest time a point waits in the buffer before it is sent (ms). */
@@ -80,6 +92,7 @@ export type InfluxStoreOptions = InfluxV1Options | InfluxV2Options;
 export const INFLUX_DEFAULTS = {
   timeoutMs: 10_000,
   writeBufferPoints: 100_000,
+  spoolMaxPoints: 2_000_000,
   batchSize: 5_000,
   flushIntervalMs: 1_000,
   minRetryDelayMs: 500,

@@ -6,7 +6,8 @@
  *    WriteApi pointed at /write?db=&rp=&precision=ms, reads with InfluxQL from /query (epoch=ms,
  *    chunked); user/password or token.
  *
- * Writes go through the Outbox (bounded buffer, backoff retries, drop policy, counters); the
+ * Writes go through the Outbox (bounded buffer, backoff retries, drop policy, counters, and the
+ * optional durable spool that keeps unconfirmed points across a shutdown or crash); the
  * client's own retry buffer is switched off because it drops points silently once its retry time
  * runs out and cannot prefer forecasts when it must shed load. Reads either return readings or
  * throw a StoreError whose canRetry() tells the daemon whether to try again next cycle.
@@ -112,6 +113,7 @@ export class InfluxStore implements SeriesStore {
     this.#outbox = new Outbox({
       sink,
       capacity: opts.writeBufferPoints ?? INFLUX_DEFAULTS.writeBufferPoints,
+      ...(opts.spool ? { spool: opts.spool, spoolCapacity: opts.spoolMaxPoints ?? INFLUX_DEFAULTS.spoolMaxPoints } : {}),
       batchSize,
       flushIntervalMs: opts.flushIntervalMs ?? INFLUX_DEFAULTS.flushIntervalMs,
       backoff: new Backoff({
@@ -249,12 +251,19 @@ export class InfluxStore implements SeriesStore {
     return this.#outbox.flush();
   }
 
-  /** Stops accepting writes, sends what is buffered within closeTimeoutMs, then releases the client. */
+  /**
+   * Stops accepting writes, sends what is buffered within closeTimeoutMs (with a spool: what the
+   * server does not confirm stays spooled for the next start), then releases the client and the spool.
+   */
   async close(): Promise<void> {
     if (this.#closed) return;
     this.#closed = true;
-    await this.#outbox.close();
-    this.#writeApi.dispose();
+    try {
+      await this.#outbox.close();
+    } finally {
+      this.#writeApi.dispose();
+      this.#opts.spool?.close();
+    }
   }
 
   /** Counters for /metrics and /readyz. */
