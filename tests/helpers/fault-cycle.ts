@@ -39,6 +39,7 @@ export const DOCUMENTED_CYCLE_CODES = new Set([
   'BAD_OPTION',
   'SINGULAR_SYSTEM',
   'BAD_MODEL',
+  'OUT_OF_RANGE',
 ]);
 
 /** Store codes a cycle may end with when the store is down, slow or refuses (src/store/influx/errors.ts). */

@@ -199,8 +199,11 @@ describe('bad readings never crash a cycle and never write a non-finite forecast
     { name: 'every timestamp twice, second copy different', make: (b) => b.flatMap((r) => [r, { t: r.t, v: r.v + 1 }]), expect: 'ok' },
     { name: 'reverse order', make: (b) => [...b].reverse(), expect: 'ok' },
     { name: 'a reading far in the future (year 275760) and at MAX_SAFE_INTEGER', make: (b) => [...b, { t: 8.64e15, v: 1 }, { t: Number.MAX_SAFE_INTEGER, v: 1 }], expect: 'ok' },
-    { name: 'huge magnitudes everywhere (1e300)', make: (b) => b.map((r) => ({ ...r, v: r.v * 1e297 })), expect: 'ok' },
-    { name: 'one reading of 1e300 in the window', make: (b) => b.map((r, i) => (i === b.length - 30 ? { ...r, v: 1e300 } : r)), expect: 'ok' },
+    // Squares of values beyond ±1e150 overflow: the model layer refuses them with a code.
+    { name: 'huge magnitudes everywhere (1e300)', make: (b) => b.map((r) => ({ ...r, v: r.v * 1e297 })), expect: 'OUT_OF_RANGE' },
+    { name: 'one reading of 1e300 in the window', make: (b) => b.map((r, i) => (i === b.length - 30 ? { ...r, v: 1e300 } : r)), expect: 'OUT_OF_RANGE' },
+    { name: 'a sensor glitch at the float32 maximum (3.4e38)', make: (b) => b.map((r, i) => (i === b.length - 30 ? { ...r, v: 3.4028234663852886e38 } : r)), expect: 'ok' },
+    { name: 'large but sane magnitudes (1e12 W as kW)', make: (b) => b.map((r) => ({ ...r, v: r.v * 1e9 })), expect: 'ok' },
     { name: 'constant series', make: (b) => b.map((r) => ({ ...r, v: 250 })), expect: 'ok' },
     { name: 'constant zero series', make: (b) => b.map((r) => ({ ...r, v: 0 })), expect: 'ok' },
     { name: 'all values missing (NaN)', make: (b) => b.map((r) => ({ ...r, v: NaN })), expect: 'INPUT_STALE' },
