@@ -8,7 +8,8 @@
  *   oskaveld-outdoor-temp  outdoor temperature, degC: annual and daily cycle plus multi-day weather
  *   oskaveld-north         residential substation, kW
  *   brennick-yard          workshops and offices, kW: strong working-day profile
- *   tarrow-hill            mixed, kW: load rises 25 % over the last three weeks (a new block connected)
+ *   tarrow-hill            mixed, kW: a new block is connected three weeks before the end, so its heating
+ *                          response (kW per heating degree) rises by 60 % over one day; the base load stays
  * Heat load follows heating degrees of a smoothed outdoor temperature (buildings respond slowly),
  * a daily profile (morning and evening peaks, night setback), weekends and DE public holidays
  * (lower, like a Sunday) and a hot-water base load. Also: a 41 h outage of the temperature
@@ -116,7 +117,8 @@ export interface Manifest {
   series: string[];
   gaps: { series: string; from: string; toExclusive: string; hours: number }[];
   spikes: { series: string; at: string; factor: number }[];
-  shift: { series: string; from: string; rampHours: number; factor: number };
+  /** Heating response (kW per heating degree) multiplied by heatingFactor, ramped in over rampHours. */
+  shift: { series: string; from: string; rampHours: number; heatingFactor: number };
   holidays: string[];
 }
 
@@ -147,7 +149,9 @@ export function generate(): { csv: Record<string, string>; manifest: Manifest } 
   const idx = (isoUtc: string) => (Date.parse(isoUtc) - START_MS) / HOUR;
   const shiftFrom = idx('2025-11-02T23:00:00Z'); // 2025-11-03 00:00 local, three weeks before the end
   const rampHours = 24;
-  const shiftFactor = 1.25;
+  // A plain level step (load x1.25) is absorbed by the level-mode model within two days and never
+  // shows as error drift; a changed response to the weather is what a new connected block does.
+  const heatingFactor = 1.6;
   const spikes = [
     { series: 'oskaveld-north', at: '2025-01-29T06:00:00Z', factor: 1.9 },
     { series: 'brennick-yard', at: '2025-03-12T10:00:00Z', factor: 2.1 },
@@ -170,11 +174,11 @@ export function generate(): { csv: Record<string, string>; manifest: Manifest } 
       // Rest days: the morning peak comes an hour or two later.
       const h = rest ? (lt.hour + 23) % 24 : lt.hour;
       const degrees = Math.max(0, 16 - felt[i]);
-      const heating = s.slopeKw * degrees * s.profile[h] * (rest ? s.restDay : 1);
+      const connected = s.name === 'tarrow-hill' && i >= shiftFrom ? 1 + (heatingFactor - 1) * Math.min(1, (i - shiftFrom + 1) / rampHours) : 1;
+      const heating = connected * s.slopeKw * degrees * s.profile[h] * (rest ? s.restDay : 1);
       const base = s.baseKw * (rest ? 1 : s.workBase) * (0.85 + 0.3 * RESIDENTIAL[lt.hour] / 1.3);
       noise = 0.8 * noise + 0.025 * n01();
-      let x = (heating + base) * (1 + noise);
-      if (s.name === 'tarrow-hill' && i >= shiftFrom) x *= 1 + (shiftFactor - 1) * Math.min(1, (i - shiftFrom + 1) / rampHours);
+      const x = (heating + base) * (1 + noise);
       v[i] = x;
     }
     values[s.name] = v;
@@ -205,7 +209,7 @@ export function generate(): { csv: Record<string, string>; manifest: Manifest } 
     series: [...SERIES, TEMP],
     gaps: gaps.map((g) => ({ series: g.series, from: g.from, toExclusive: iso(Date.parse(g.from) + g.hours * HOUR), hours: g.hours })),
     spikes,
-    shift: { series: 'tarrow-hill', from: iso(START_MS + shiftFrom * HOUR), rampHours, factor: shiftFactor },
+    shift: { series: 'tarrow-hill', from: iso(START_MS + shiftFrom * HOUR), rampHours, heatingFactor },
     holidays: [...holidays].filter((d) => d >= lts[0].date && d <= lts[HOURS - 1].date).sort(),
   };
   return { csv, manifest };

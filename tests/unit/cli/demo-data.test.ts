@@ -49,7 +49,7 @@ describe('demo data', () => {
     expect(day('2025-04-30T00:00:00+02:00')).toBeGreaterThan(1.2 * day('2025-05-01T00:00:00+02:00'));
   });
 
-  it('tarrow-hill rises 25 % in the last three weeks relative to its neighbours', () => {
+  it('tarrow-hill (heating response x1.6 from the shift) rises well above its neighbours in the last three weeks', () => {
     const from = Date.parse(manifest.shift.from);
     const ratio = (name: string) => {
       const rs = parseReadingsCsv(csv[name]).readings;
