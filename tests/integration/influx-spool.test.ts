@@ -222,7 +222,7 @@ describe('write spool (InfluxDB 1.x)', () => {
         };
         child.stdout.on('data', onData);
         void exited.then(() => reject(new Error(`child ended before ${what}; stderr:\n${stderr}`)));
-        setTimeout(() => reject(new Error(`no ${what} within 20 s; stdout:\n${out}\nstderr:\n${stderr}`)), 20_000).unref();
+        setTimeout(() => reject(new Error(`no ${what} within 30 s; stdout:\n${out}\nstderr:\n${stderr}`)), 30_000).unref();
       });
 
     await seen(() => out.includes('ready '), '"ready"');
