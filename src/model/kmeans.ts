@@ -118,8 +118,6 @@ function meanVariance(x: Float64Array, n: number, d: number): number {
 
 /** Distance passes over one data set: the SIMD kernels with the rows kept resident, or plain loops. */
 interface DistancePass {
-  /** Nearest centre of every row (labels, mind); returns the summed minimum. dist2 is filled on the scalar path only. */
-  assign(c: Float64Array, c2: Float64Array, K: number, labels: Int32Array, mind: Float64Array, dist2: Float64Array | null): number;
   /** Full squared-distance matrix (n x K). */
   all(c: Float64Array, c2: Float64Array, K: number, out: Float64Array): Float64Array;
   /** k-means++ step (see SimdKernels.seedUpdate); minD2 is valid until the next call. */
@@ -135,7 +133,6 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
   if (sk) {
     const res = sk.resident(x, x2, n, d);
     return {
-      assign: (c, c2, K, labels, mind) => res.assign(c, c2, K, labels, mind),
       all: (c, c2, K, out) => res.dist2(c, c2, K, out),
       rows: (rows, count, c, c2, K, out) => res.dist2Rows(rows, count, c, c2, K, out),
       own: (c, K, labels, out) => res.ownDist2(c, K, labels, out),
@@ -143,11 +140,6 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
     };
   }
   return {
-    assign(c, c2, K, labels, mind, dist2) {
-      const dd = dist2 ?? new Float64Array(n * K);
-      dist2Scalar(x, x2, n, d, c, c2, K, dd);
-      return argminRows(dd, n, K, labels, mind);
-    },
     all(c, c2, K, out) {
       dist2Scalar(x, x2, n, d, c, c2, K, out);
       return out;

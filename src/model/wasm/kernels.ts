@@ -9,8 +9,6 @@ import { KERNELS_WASM_BASE64 } from './kernels.wasm.ts';
 export interface ResidentRows {
   /** out (m x n) = squared distances of the rows to the n centres. */
   dist2(c: Float64Array, c2: Float64Array, n: number, out: Float64Array): Float64Array;
-  /** Nearest centre of every row into labels, its squared distance into mind; returns the sum. */
-  assign(c: Float64Array, c2: Float64Array, n: number, labels: Int32Array, mind: Float64Array): number;
   /**
    * k-means++ step for one new centre c: minD2[i] = min(minD2[i], |x_i - c|^2) (difference form;
    * = when first). Returns the sum and a view of minD2, valid until the next kernel call.
@@ -41,7 +39,6 @@ interface Exports {
   gemm(a: number, m: number, k: number, b: number, n: number, c: number): void;
   gemmAdd(a: number, m: number, k: number, b: number, n: number, c: number): void;
   dist2(a: number, m: number, k: number, b: number, n: number, a2: number, b2: number, c: number): void;
-  argmin(d: number, m: number, n: number, stride: number, labels: number, mind: number): number;
   transpose(src: number, rows: number, cols: number, stride: number, dst: number): void;
   ownDist(x: number, m: number, k: number, c: number, labels: number, out: number): void;
   seedUpdate(x: number, m: number, k: number, c: number, mind: number, first: number): number;
@@ -175,15 +172,6 @@ export function loadSimdKernels(): SimdKernels | null {
           ex.dist2(pg, count, k, pb, np, pg2, pb2, pd);
           copyOut(pd, count, n, np, out);
           return out;
-        },
-        assign(c, c2, n, labels, mind) {
-          const { np, pd } = pass(c, c2, n);
-          const pl = align16(pd + m * np * 8);
-          const pm = align16(pl + m * 4);
-          const sum = ex.argmin(pd, m, n, np, pl, pm);
-          labels.set(new Int32Array(mem.buffer, pl, m));
-          mind.set(f64.subarray(pm / 8, pm / 8 + m));
-          return sum;
         },
       };
     },

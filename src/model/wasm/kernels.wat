@@ -2,7 +2,6 @@
 ;; gemm(a, m, k, b, n, c):               C = A B          (A m x k, B k x n, n even; row-major f64)
 ;; gemmAdd(a, m, k, b, n, c):            C += A B
 ;; dist2(a, m, k, b, n, a2, b2, c):      C[i,j] = max(0, a2[i] + b2[j] - 2 (A B)[i,j])
-;; argmin(d, m, n, stride, labels, mind): per row of D the first smallest value and its index
 ;; transpose(src, rows, cols, stride, dst): dst = src^T
 ;; ownDist(x, m, k, c, labels, out):    out[i] = |x_i - c_labels[i]|^2
 ;; Pointers are byte offsets into the exported memory (16-byte aligned).
@@ -134,26 +133,6 @@
   (func (export "gemmAdd") (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32) (param $c i32)
     (call $kernel (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
       (i32.const 2) (i32.const 0) (i32.const 0)))
-  ;; Row-wise argmin of D (m rows of n values, row stride $stride values): labels[i] (i32) and
-  ;; mind[i] = the smallest value (first on ties), returns their sum.
-  (func (export "argmin") (param $d i32) (param $m i32) (param $n i32) (param $stride i32) (param $labels i32) (param $mind i32) (result f64)
-    (local $i i32) (local $j i32) (local $p i32) (local $best f64) (local $bk i32) (local $v f64) (local $sum f64)
-    (block $iend (loop $iloop (br_if $iend (i32.ge_s (local.get $i) (local.get $m)))
-      (local.set $p (i32.add (local.get $d) (i32.shl (i32.mul (local.get $i) (local.get $stride)) (i32.const 3))))
-      (local.set $best (f64.load (local.get $p)))
-      (local.set $bk (i32.const 0))
-      (local.set $j (i32.const 1))
-      (block $jend (loop $jloop (br_if $jend (i32.ge_s (local.get $j) (local.get $n)))
-        (local.set $v (f64.load (i32.add (local.get $p) (i32.shl (local.get $j) (i32.const 3)))))
-        (if (f64.lt (local.get $v) (local.get $best)) (then (local.set $best (local.get $v)) (local.set $bk (local.get $j))))
-        (local.set $j (i32.add (local.get $j) (i32.const 1)))
-        (br $jloop)))
-      (i32.store (i32.add (local.get $labels) (i32.shl (local.get $i) (i32.const 2))) (local.get $bk))
-      (f64.store (i32.add (local.get $mind) (i32.shl (local.get $i) (i32.const 3))) (local.get $best))
-      (local.set $sum (f64.add (local.get $sum) (local.get $best)))
-      (local.set $i (i32.add (local.get $i) (i32.const 1)))
-      (br $iloop)))
-    (local.get $sum))
   ;; out[i] = |x_i - c_{labels[i]}|^2 (difference form; x m x k, c row-major, labels i32).
   (func (export "ownDist") (param $x i32) (param $m i32) (param $k i32) (param $c i32) (param $labels i32) (param $out i32)
     (local $i i32) (local $l i32) (local $k2 i32) (local $pa i32) (local $pc i32) (local $acc v128) (local $e v128) (local $s f64) (local $t f64)

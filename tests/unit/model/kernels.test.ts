@@ -56,26 +56,34 @@ describe('SIMD kernels', () => {
         dist2Scalar(x, x2, m, k, c, c2, n, ref);
         const out = simd!.dist2(x, x2, m, c, c2, n, k, new Float64Array(m * n));
         expect(Array.from(out)).toEqual(Array.from(ref));
-        // Resident rows: full pass, subset of rows, assignment, own-centre distances.
+        // Resident rows: full pass, subset of rows, own-centre distances, k-means++ step.
         const res = simd!.resident(x, x2, m, k);
         expect(Array.from(res.dist2(c, c2, n, new Float64Array(m * n)))).toEqual(Array.from(ref));
         const rows = Int32Array.from({ length: m }, (_, i) => (i * 7) % m);
         const sub = res.dist2Rows(rows, m, c, c2, n, new Float64Array(m * n));
         for (let i = 0; i < m; i++) for (let j = 0; j < n; j++) expect(sub[i * n + j]).toBe(ref[rows[i] * n + j]);
-        const labels = new Int32Array(m);
-        const mind = new Float64Array(m);
-        res.assign(c, c2, n, labels, mind);
-        for (let i = 0; i < m; i++) {
-          const row = Array.from(ref.subarray(i * n, (i + 1) * n));
-          expect(labels[i]).toBe(row.indexOf(Math.min(...row)));
-          expect(mind[i]).toBe(Math.min(...row));
-        }
+        const labels = Int32Array.from({ length: m }, (_, i) => (i * 5) % n);
         const own = res.ownDist2(c, n, labels, new Float64Array(m));
         for (let i = 0; i < m; i++) {
           let s = 0;
           for (let l = 0; l < k; l++) s += (x[i * k + l] - c[labels[i] * k + l]) ** 2;
           expect(own[i]).toBeCloseTo(s, 10);
         }
+        const step = res.seedUpdate(c.subarray(0, k), true);
+        const step2 = res.seedUpdate(c.subarray(k * (n - 1), k * n), false);
+        let total = 0;
+        for (let i = 0; i < m; i++) {
+          let a = 0;
+          let b = 0;
+          for (let l = 0; l < k; l++) {
+            a += (x[i * k + l] - c[l]) ** 2;
+            b += (x[i * k + l] - c[(n - 1) * k + l]) ** 2;
+          }
+          expect(step2.minD2[i]).toBeCloseTo(Math.min(a, b), 10);
+          total += Math.min(a, b);
+        }
+        expect(step.total).toBeGreaterThanOrEqual(step2.total);
+        expect(step2.total).toBeCloseTo(total, 8);
       }),
       { numRuns: 60 },
     );
