@@ -66,6 +66,20 @@ export function gramCross(a: Float64Array, p: number, r: Float64Array, h: number
   return { g, b };
 }
 
+/** A^T [A | R] over rows [r0, r1) as one p x (p + h) matrix (A is n x p, R is n x h). */
+export function crossWithSelf(a: Float64Array, p: number, r: Float64Array, h: number, r0: number, r1: number): Float64Array {
+  const k = simdKernels();
+  if (k) return k.crossRows(a, p, r, h, r0, r1, true, new Float64Array(p * (p + h)));
+  const g = gram(a, p, r0, r1);
+  const b = crossProduct(a, p, r, h, r0, r1);
+  const out = new Float64Array(p * (p + h));
+  for (let i = 0; i < p; i++) {
+    out.set(g.subarray(i * p, (i + 1) * p), i * (p + h));
+    out.set(b.subarray(i * h, (i + 1) * h), i * (p + h) + p);
+  }
+  return out;
+}
+
 /** B = A^T R over rows [r0, r1) (R rows indexed like A's). */
 export function crossRows(a: Float64Array, p: number, r: Float64Array, h: number, r0: number, r1: number): Float64Array {
   const k = simdKernels();

@@ -8,7 +8,7 @@ import { ModelError } from './errors.ts';
 import { checkDense, checkInt, checkNumber } from './check.ts';
 import { kmeans } from './kmeans.ts';
 import { choleskySolve, factorRidge, type CholeskyFactor } from './linalg.ts';
-import { crossRows, gramCross, matmul } from './blas.ts';
+import { crossRows, crossWithSelf, matmul } from './blas.ts';
 import { logGammaGradient } from './rbf.ts';
 
 /** Defaults of every fit option (the one place they live). */
@@ -492,19 +492,7 @@ function put(a: Float64Array, i: number, v: number, add: boolean): void {
   a[i] = add ? a[i] + v : v;
 }
 
-/** A^T [A | R] (withSelf) or A^T R over rows [r0, r1); A is n x p, R is n x h (or rows indexed from 0 when shorter). */
+/** A^T [A | R] (p x (p + h), withSelf) or A^T R (p x h) over rows [r0, r1); A is n x p, R is n x h. */
 function productRows(a: Float64Array, p: number, r: Float64Array, h: number, r0: number, r1: number, withSelf: boolean): Float64Array {
-  const rr = r.length === (r1 - r0) * h && r0 > 0 ? null : r;
-  if (rr === null) {
-    // r holds only the rows [r0, r1): shift A to match.
-    return productRows(a.subarray(r0 * p, r1 * p), p, r, h, 0, r1 - r0, withSelf);
-  }
-  if (!withSelf) return crossRows(a, p, r, h, r0, r1);
-  const { g, b } = gramCross(a, p, r, h, r0, r1);
-  const out = new Float64Array(p * (p + h));
-  for (let i = 0; i < p; i++) {
-    out.set(g.subarray(i * p, (i + 1) * p), i * (p + h));
-    out.set(b.subarray(i * h, (i + 1) * h), i * (p + h) + p);
-  }
-  return out;
+  return withSelf ? crossWithSelf(a, p, r, h, r0, r1) : crossRows(a, p, r, h, r0, r1);
 }

@@ -7,34 +7,7 @@ import type { Dense, Prediction, RbfModel } from './types.ts';
 import { ModelError } from './errors.ts';
 import { checkDense } from './check.ts';
 import { dist2All, rowNorms2 } from './distance.ts';
-import { matmul, residualRows } from './blas.ts';
-
-/**
- * Design matrix rows [0, nRows): [1 | exp(-γ_k d2[n,k]) | x[n, linIdx]] -> out (nRows x P),
- * with P = 1 + K + linIdx.length.
- */
-export function designMatrix(d2: Float64Array, nRows: number, nCentres: number, gammas: Float64Array, x: Float64Array, nFeatures: number, linIdx: Int32Array, out: Float64Array, bias = 1): void {
-  const K = nCentres;
-  const L = linIdx.length;
-  const P = 1 + K + L;
-  for (let n = 0; n < nRows; n++) {
-    const o = n * P;
-    const dOff = n * K;
-    out[o] = bias;
-    for (let k = 0; k < K; k++) out[o + 1 + k] = Math.exp(-gammas[k] * d2[dOff + k]);
-    const xo = n * nFeatures;
-    for (let j = 0; j < L; j++) out[o + 1 + K + j] = x[xo + linIdx[j]];
-  }
-}
-
-/** Mean squared error of Phi W against Y over rows [r0, r1), all outputs. */
-export function mseRows(phi: Float64Array, p: number, w: Float64Array, y: Float64Array, h: number, r0: number, r1: number, scratch?: Float64Array): number {
-  if (r1 <= r0) return NaN;
-  const r = residualRows(phi, p, w, y, h, r0, r1, scratch ?? new Float64Array((r1 - r0) * h));
-  let s = 0;
-  for (let i = 0; i < (r1 - r0) * h; i++) s += r[i] * r[i];
-  return s / ((r1 - r0) * h);
-}
+import { matmul } from './blas.ts';
 
 /**
  * Gradient of the MSE with respect to log γ_k with the weights fixed, from the residuals
