@@ -43,7 +43,9 @@ export interface KMeansResult {
 }
 
 export interface FitOptions {
+  /** Number of Gaussian units (k-means centres). Default 32; must not exceed the number of samples. */
   nCentres: number;
+  /** One width for all units, or one per unit. Default 'per-centre'. */
   widthMode: WidthMode;
   /**
    * Ridge penalty, relative (unit-free; 0 = plain least squares): Gaussian weights get
@@ -55,14 +57,17 @@ export interface FitOptions {
   linearTerms: boolean;
   /** Fit a bias (intercept) column. Default true; false only for pure interpolation networks (its weight row is then 0). */
   bias?: boolean;
+  /** k-means++ restarts on a cold fit (lowest within-cluster sum of squares wins). Default 3. */
   restarts: number;
+  /** Upper bound on Lloyd passes per restart. Default 100. */
   maxPasses: number;
-  /** Maximum alternating (weights <-> widths) iterations. */
+  /** Maximum alternating (weights <-> widths) iterations on a cold fit. Default 5. */
   widthIterations: number;
-  /** Stop the alternation when relative validation improvement is below this. */
+  /** Stop the alternation when the relative validation improvement of a step is below this. Default 1e-3. */
   widthTol: number;
-  /** Share of the (time-ordered) training rows held back at the end as the validation tail. */
+  /** Share of the (time-ordered) rows held back at the end as the validation tail, in [0, 0.9]. Default 0.2. */
   validationFraction: number;
+  /** Seed of the random source (k-means++, subsample); same seed, same model. */
   seed: number;
   /** Previous model for a warm start (centres and widths reused when dimensions match). */
   warmStart?: RbfModel;
