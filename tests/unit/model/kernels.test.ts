@@ -134,3 +134,12 @@ describe('results do not depend on the kernels', () => {
     for (let i = 0; i < pa.length; i++) expect(pb[i]).toBeCloseTo(pa[i], 8);
   });
 });
+
+describe('built module', () => {
+  it('the embedded bytes are what src/model/wasm/build.ts produces from its source', async () => {
+    const { buildKernels } = await import('../../../src/model/wasm/build.ts');
+    const { KERNELS_WASM_BASE64 } = await import('../../../src/model/wasm/kernels.wasm.ts');
+    const { bytes } = await buildKernels();
+    expect(Buffer.from(bytes).toString('base64')).toBe(KERNELS_WASM_BASE64);
+  });
+});
