@@ -38,6 +38,7 @@ interface Exports {
   memory: WebAssembly.Memory;
   gemm(a: number, m: number, k: number, b: number, n: number, c: number): void;
   gemmAdd(a: number, m: number, k: number, b: number, n: number, c: number): void;
+  gemmAddUpper(a: number, m: number, k: number, b: number, n: number, c: number): void;
   dist2(a: number, m: number, k: number, b: number, n: number, a2: number, b2: number, c: number): void;
   transpose(src: number, rows: number, cols: number, stride: number, dst: number): void;
   ownDist(x: number, m: number, k: number, c: number, labels: number, out: number): void;
@@ -226,12 +227,13 @@ export function loadSimdKernels(): SimdKernels | null {
       for (let s = 0; s < n; s += CHUNK_ROWS) {
         const cr = Math.min(CHUNK_ROWS, n - s);
         ex.transpose(pA + s * pe * 8, cr, pe, pe, pT);
-        if (withGram) ex.gemmAdd(pT, pe, cr, pA + s * pe * 8, pe, p1);
+        if (withGram) ex.gemmAddUpper(pT, pe, cr, pA + s * pe * 8, pe, p1);
         ex.gemmAdd(pT, pe, cr, pR + s * he * 8, he, p2);
       }
       const nc = (withGram ? p : 0) + h;
       for (let i = 0; i < p; i++) {
-        if (withGram) for (let j = 0; j < p; j++) out[i * nc + j] = f64[p1 / 8 + i * pe + j];
+        // Gram: the upper part was summed (from the even column at or left of the diagonal); mirror it.
+        if (withGram) for (let j = 0; j < p; j++) out[i * nc + j] = j >= i ? f64[p1 / 8 + i * pe + j] : f64[p1 / 8 + j * pe + i];
         const o = withGram ? p : 0;
         for (let c = 0; c < h; c++) out[i * nc + o + c] = f64[p2 / 8 + i * he + c];
       }
