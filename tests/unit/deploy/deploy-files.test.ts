@@ -492,8 +492,9 @@ describe('deploy/k8s manifests', () => {
     for (const m of container.volumeMounts) expect(pod.volumes.some((v: Obj) => v.name === m.name) || m.name === 'state').toBe(true);
   });
 
-  it('requests CPU and memory and caps memory', () => {
-    expect(container.resources.requests.cpu).toBeDefined();
+  it('requests one core per fit worker, requests memory and caps it', () => {
+    const config = ConfigSchema.parse(parseYaml(cm.data['radcast.yaml']));
+    expect(Number(container.resources.requests.cpu)).toBe(config.daemon.concurrency);
     expect(container.resources.requests.memory).toMatch(/^\d+(Mi|Gi)$/);
     expect(container.resources.limits.memory).toMatch(/^\d+(Mi|Gi)$/);
   });
