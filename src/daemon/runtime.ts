@@ -21,7 +21,7 @@ import { DaemonMetrics, type StoreWriteStats } from './metrics.ts';
 import { InlineFitter, PoolFitter } from './pool.ts';
 import type { Fitter } from './ports.ts';
 import { StateAdapter } from './state-adapter.ts';
-import { ALL_SERIES, filterOwned, shardLabel, type ShardSpec } from './shard.ts';
+import { ALL_SERIES, ownedSeries, shardLabel, type ShardSpec } from './shard.ts';
 import { flushAndClose } from './close.ts';
 import { WebhookNotifier } from './webhook.ts';
 
@@ -129,7 +129,7 @@ export async function openRuntime(loaded: LoadedConfig, deps: RuntimeDeps): Prom
   metrics.bindStoreStats(() => storeWriteStats(store));
   const cycle = new SeriesCycle({ store, state, fitter, logger, clock, metrics, drift });
   const shard = deps.shard ?? ALL_SERIES;
-  const owned = filterOwned(shard, loaded.series, (s) => s.name);
+  const owned = ownedSeries(shard, loaded.series);
   metrics.seriesConfigured.set(owned.length);
   if (shard.count > 1) logger.info({ shard: shardLabel(shard), owned: owned.length, configured: loaded.series.length }, 'running one shard of the series');
   let closed: Promise<void> | null = null;

@@ -231,3 +231,47 @@ export function resolveShardOrThrow(input: ResolveShardInput = {}): ShardSpec {
   if (!r.ok) throw new ShardConfigError(r.error);
   return r.shard;
 }
+
+/** The parts of a resolved series that decide its shard key. */
+export interface ShardKeyInput {
+  name: string;
+  exogenous: readonly { name: string; atTarget: boolean; configured: boolean }[];
+}
+
+/**
+ * Hash key per series name. A series that uses another configured series' forecast as an input
+ * (exogenous with atTarget) must run on the same instance as that series, because the forecast
+ * it needs is read from the instance's own state. So series linked by such inputs form a group
+ * (union-find over the links) and every member is keyed by the group's smallest name; all other
+ * series are keyed by their own name.
+ */
+export function shardKeys(series: readonly ShardKeyInput[]): Map<string, string> {
+  const parent = new Map<string, string>(series.map((s) => [s.name, s.name]));
+  const find = (x: string): string => {
+    let r = x;
+    while (parent.get(r) !== r) r = parent.get(r)!;
+    // Path compression: point every node on the way at the root.
+    for (let y = x; parent.get(y) !== r; ) {
+      const next = parent.get(y)!;
+      parent.set(y, r);
+      y = next;
+    }
+    return r;
+  };
+  for (const s of series) {
+    for (const e of s.exogenous) {
+      if (!e.atTarget || !e.configured || !parent.has(e.name)) continue;
+      const a = find(s.name);
+      const b = find(e.name);
+      if (a !== b) (a < b ? parent.set(b, a) : parent.set(a, b));
+    }
+  }
+  return new Map(series.map((s) => [s.name, find(s.name)]));
+}
+
+/** The series of `all` this shard owns, keeping series linked by at-target inputs together. */
+export function ownedSeries<T extends ShardKeyInput>(spec: ShardSpec, all: readonly T[]): T[] {
+  if (spec.count === 1) return all.slice();
+  const keys = shardKeys(all);
+  return all.filter((s) => ownsSeries(spec, keys.get(s.name) ?? s.name));
+}

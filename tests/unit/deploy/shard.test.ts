@@ -13,6 +13,8 @@ import {
   parseShard,
   resolveShard,
   resolveShardOrThrow,
+  ownedSeries,
+  shardKeys,
   shardOf,
   type ShardSpec,
 } from '../../../src/daemon/shard.ts';
@@ -226,5 +228,52 @@ describe('resolveShard', () => {
       expect(err.message).toBe(formatShardError(err.detail));
       expect(err.message).toMatch(/^SHARD_INDEX_OUT_OF_RANGE --shard="4\/4": .*\(hint: .*0-based/);
     }
+  });
+});
+
+describe('shardKeys / ownedSeries: series linked by at-target inputs stay together', () => {
+  const s = (name: string, inputs: { name: string; atTarget?: boolean; configured?: boolean }[] = []) => ({
+    name,
+    exogenous: inputs.map((e) => ({ name: e.name, atTarget: e.atTarget ?? true, configured: e.configured ?? true })),
+  });
+
+  it('keys a group by its smallest name and leaves unlinked series alone', () => {
+    const fleet = [
+      s('tarrow-hill', [{ name: 'oskaveld-outdoor-temp' }]),
+      s('brennick-yard', [{ name: 'oskaveld-outdoor-temp', atTarget: false }]),
+      s('oskaveld-outdoor-temp'),
+      s('oskaveld-north', [{ name: 'tarrow-hill' }]),
+      s('lone', [{ name: 'not-configured', configured: false }]),
+    ];
+    const keys = shardKeys(fleet);
+    expect(keys.get('tarrow-hill')).toBe('oskaveld-north');
+    expect(keys.get('oskaveld-outdoor-temp')).toBe('oskaveld-north');
+    expect(keys.get('oskaveld-north')).toBe('oskaveld-north');
+    // A lagged (not at-target) input does not bind: its readings come from the store.
+    expect(keys.get('brennick-yard')).toBe('brennick-yard');
+    expect(keys.get('lone')).toBe('lone');
+  });
+
+  it('every series is owned by exactly one shard and each group by a single shard (property)', () => {
+    const names = Array.from({ length: 40 }, (_, i) => `sub-${i}`);
+    fc.assert(
+      fc.property(
+        fc.array(fc.tuple(fc.integer({ min: 0, max: 39 }), fc.integer({ min: 0, max: 39 })), { maxLength: 30 }),
+        fc.integer({ min: 1, max: 6 }),
+        (links, n) => {
+          const fleet = names.map((name, i) => s(name, links.filter(([a]) => a === i).map(([, b]) => ({ name: names[b] }))));
+          const owner = new Map<string, number>();
+          for (let i = 0; i < n; i++) {
+            for (const x of ownedSeries(spec(i, n), fleet)) {
+              if (owner.has(x.name)) return false;
+              owner.set(x.name, i);
+            }
+          }
+          if (owner.size !== names.length) return false;
+          return links.every(([a, b]) => owner.get(names[a]) === owner.get(names[b]));
+        },
+      ),
+      { numRuns: 200 },
+    );
   });
 });
