@@ -340,7 +340,11 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
   const grid = RIDGE_GRID.filter((v) => v > o.ridge).concat([o.ridge]).sort((a, c) => a - c);
   const prevRidge = warm?.gaussianRidge;
   const at = prevRidge === undefined ? -1 : grid.indexOf(prevRidge);
-  const searchGrid = at < 0 ? grid : grid.slice(Math.max(0, at - 1), at + 2);
+  // The largest candidate (practically the linear model) always stays in: without it a warm chain
+  // that drifted to a small shrinkage can lose to plain ridge regression on a nearly linear series.
+  const largest = grid[grid.length - 1];
+  const near = at < 0 ? grid : grid.slice(Math.max(0, at - 1), at + 2);
+  const searchGrid = near.includes(largest) ? near : [...near, largest];
   // A warm start begins from widths tuned by earlier fits: a few steps per refit keep tracking
   // them, so the alternation is spread over the chain of refits.
   const widthIterations = warm ? Math.min(o.widthIterations, o.warmWidthIterations) : o.widthIterations;

@@ -23,21 +23,19 @@ function block(R: number, V: number): string {
   const acc = (r: number, v: number) => `$s${r}${v}`;
   const lines: string[] = [];
   for (let r = 0; r < R; r++) for (let v = 0; v < V; v++) lines.push(`(local.set ${acc(r, v)} (f64x2.splat (f64.const 0)))`);
-  // pointers: $pa = &A[i, 0], $pb = &B[0, j]
-  lines.push('(local.set $pa (i32.add (local.get $a) (i32.mul (local.get $i) (local.get $rowa))))');
+  // pointers: $q<r> = &A[i + r, 0], $pb = &B[0, j]; all advance once per step of the shared axis.
+  for (let r = 0; r < R; r++) lines.push(`(local.set $q${r} (i32.add (local.get $a) (i32.mul (i32.add (local.get $i) (i32.const ${r})) (local.get $rowa))))`);
   lines.push('(local.set $pb (i32.add (local.get $b) (i32.shl (local.get $j) (i32.const 3))))');
-  lines.push('(local.set $l (i32.const 0))');
+  lines.push('(local.set $pend (i32.add (local.get $q0) (local.get $rowa)))');
   const body: string[] = [];
   for (let v = 0; v < V; v++) body.push(`(local.set $y${v} (v128.load offset=${16 * v} (local.get $pb)))`);
   for (let r = 0; r < R; r++) {
-    const addr = r === 0 ? '(local.get $pa)' : `(i32.add (local.get $pa) (i32.mul (i32.const ${r}) (local.get $rowa)))`;
-    body.push(`(local.set $x (v128.load64_splat ${addr}))`);
+    body.push(`(local.set $x (v128.load64_splat (local.get $q${r})))`);
     for (let v = 0; v < V; v++) body.push(`(local.set ${acc(r, v)} (f64x2.add (local.get ${acc(r, v)}) (f64x2.mul (local.get $x) (local.get $y${v}))))`);
   }
-  body.push('(local.set $pa (i32.add (local.get $pa) (i32.const 8)))');
+  for (let r = 0; r < R; r++) body.push(`(local.set $q${r} (i32.add (local.get $q${r}) (i32.const 8)))`);
   body.push('(local.set $pb (i32.add (local.get $pb) (local.get $rowb)))');
-  body.push('(local.set $l (i32.add (local.get $l) (i32.const 1)))');
-  lines.push(`(block $lend (loop $lloop (br_if $lend (i32.ge_u (local.get $l) (local.get $k)))\n        ${body.join('\n        ')}\n        (br $lloop)))`);
+  lines.push(`(block $lend (loop $lloop (br_if $lend (i32.ge_u (local.get $q0) (local.get $pend)))\n        ${body.join('\n        ')}\n        (br $lloop)))`);
   // Epilogue: store, or the clipped distance form.
   for (let r = 0; r < R; r++) {
     for (let v = 0; v < V; v++) {
@@ -51,7 +49,7 @@ function block(R: number, V: number): string {
 }
 
 function kernel(): string {
-  const locals = ['(local $i i32) (local $j i32) (local $l i32) (local $pa i32) (local $pb i32) (local $rowa i32) (local $rowb i32)', '(local $x v128) (local $y0 v128) (local $y1 v128)'];
+  const locals = ['(local $i i32) (local $j i32) (local $pb i32) (local $pend i32) (local $rowa i32) (local $rowb i32)', '(local $q0 i32) (local $q1 i32) (local $q2 i32) (local $q3 i32)', '(local $x v128) (local $y0 v128) (local $y1 v128)'];
   for (let r = 0; r < 4; r++) locals.push(`(local $s${r}0 v128) (local $s${r}1 v128)`);
   // Column loop for a band of R rows: blocks of 4 columns, then one of 2.
   const band = (R: number) => `(local.set $j (if (result i32) (i32.eq (local.get $mode) (i32.const 3)) (then (i32.and (local.get $i) (i32.const -2))) (else (i32.const 0))))
