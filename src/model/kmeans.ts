@@ -265,6 +265,8 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
   const moved = new Float64Array(K);
   const half = new Float64Array(K);
   const todo = new Int32Array(n);
+  /** Distance rows of the samples being reassigned (reused every pass). */
+  const rowsBuf = new Float64Array(n * K);
   const inertiaByPass: number[] = [];
   let passes = 0;
   let settled = false;
@@ -315,7 +317,7 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
 
   const full = (): void => {
     rowNorms2(centres, K, d, c2);
-    assignRows(null, n, pass.all(centres, c2, K, new Float64Array(n * K)));
+    assignRows(null, n, pass.all(centres, c2, K, rowsBuf));
   };
 
   const bounded = (): void => {
@@ -355,7 +357,7 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
       const bound = l > half[a] ? l : half[a];
       if (Math.sqrt(own[i]) >= bound * (1 - 1e-9)) todo[count++] = i;
     }
-    if (count > 0) assignRows(todo, count, pass.rows(todo, count, centres, c2, K, new Float64Array(count * K)));
+    if (count > 0) assignRows(todo, count, pass.rows(todo, count, centres, c2, K, rowsBuf.subarray(0, count * K)));
   };
 
   const sumOwn = (): number => {
