@@ -113,6 +113,59 @@ export function scriptHash(code: string): string {
 }
 
 /** Draws every chart described in the JSON data element; sets window.radcastChartsDrawn. */
+/** Style shared by every radcast report page (backtest, tune). */
+const BASE_CSS = `body { font: 14px/1.45 system-ui, sans-serif; margin: 0; color: #1d2630; background: #f6f7f4; }
+header { padding: 18px 28px; background: #20343a; color: #f2f5ef; }
+header h1 { margin: 0 0 4px; font-size: 20px; font-weight: 600; }
+header p { margin: 0; opacity: .8; }
+main { padding: 8px 28px 40px; }`;
+
+export interface ReportPage {
+  title: string;
+  /** Line under the title (plain text, escaped here). */
+  subtitle: string;
+  /** CSS after the shared base style. */
+  css: string;
+  /** Inner HTML of <main> (already escaped by the caller). */
+  main: string;
+  /** id of the JSON data element the page script reads, and its value. */
+  dataId: string;
+  data: unknown;
+  /** The page's own script; it and chart.js are the only scripts the CSP lets run. */
+  pageScript: string;
+}
+
+/**
+ * One self-contained HTML report: chart.js inlined, data as JSON in a non-executing element, and a
+ * content security policy that allows exactly the two inline scripts by hash.
+ */
+export function renderReportPage(p: ReportPage): string {
+  const cjs = chartJs();
+  return `<!doctype html>
+<html lang="en">
+<head>
+<meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<meta http-equiv="Content-Security-Policy" content="default-src 'none'; script-src ${scriptHash(cjs)} ${scriptHash(p.pageScript)}; style-src 'unsafe-inline'; img-src data:">
+<title>${escapeHtml(p.title)}</title>
+<style>
+${BASE_CSS}
+${p.css.trim()}
+</style>
+</head>
+<body>
+<header><h1>${escapeHtml(p.title)}</h1><p>${escapeHtml(p.subtitle)}</p></header>
+<main>
+${p.main}
+</main>
+<script type="application/json" id="${escapeHtml(p.dataId)}">${jsonForScript(p.data)}</script>
+<script>${cjs}</script>
+<script>${p.pageScript}</script>
+</body>
+</html>
+`;
+}
+
 const PAGE_SCRIPT = `
 (function () {
   'use strict';
@@ -237,20 +290,10 @@ ${[...chartIds, leadId, maseId].map((id) => `<figure><div class="plot"><canvas i
 </section>`);
   });
 
-  return `<!doctype html>
-<html lang="en">
-<head>
-<meta charset="utf-8">
-<meta name="viewport" content="width=device-width, initial-scale=1">
-<meta http-equiv="Content-Security-Policy" content="default-src 'none'; script-src ${scriptHash(chartJs())} ${scriptHash(PAGE_SCRIPT)}; style-src 'unsafe-inline'; img-src data:">
-<title>${escapeHtml(title)}</title>
-<style>
-body { font: 14px/1.45 system-ui, sans-serif; margin: 0; color: #1d2630; background: #f6f7f4; }
-header { padding: 18px 28px; background: #20343a; color: #f2f5ef; }
-header h1 { margin: 0 0 4px; font-size: 20px; font-weight: 600; }
-header p { margin: 0; opacity: .8; }
-main { padding: 8px 28px 40px; }
-section.series { background: #fff; border: 1px solid #d9ddd3; border-radius: 6px; margin: 18px 0; padding: 4px 18px 18px; }
+  return renderReportPage({
+    title,
+    subtitle: `generated ${generated} · errors are actual − forecast; MASE is scaled by the in-sample mean absolute seasonal difference of each origin's training window (Hyndman & Koehler 2006)`,
+    css: `section.series { background: #fff; border: 1px solid #d9ddd3; border-radius: 6px; margin: 18px 0; padding: 4px 18px 18px; }
 h2 { font-size: 17px; margin: 14px 0 6px; }
 .facts span { display: inline-block; margin: 0 14px 4px 0; color: #4a5a60; }
 table.metrics { border-collapse: collapse; margin: 10px 0; min-width: 60%; }
@@ -261,18 +304,10 @@ table.metrics tr.model { background: #eef5f0; font-weight: 600; }
 .grid { display: grid; grid-template-columns: repeat(auto-fit, minmax(460px, 1fr)); gap: 14px; }
 figure { margin: 0; }
 .plot { position: relative; height: 300px; }
-details.failed { color: #7a3b1d; margin: 8px 0; }
-</style>
-</head>
-<body>
-<header><h1>${escapeHtml(title)}</h1><p>generated ${escapeHtml(generated)} · errors are actual − forecast; MASE is scaled by the in-sample mean absolute seasonal difference of each origin's training window (Hyndman &amp; Koehler 2006)</p></header>
-<main>
-${sections.join('\n')}
-</main>
-<script type="application/json" id="radcast-report-data">${jsonForScript({ charts })}</script>
-<script>${chartJs()}</script>
-<script>${PAGE_SCRIPT}</script>
-</body>
-</html>
-`;
+details.failed { color: #7a3b1d; margin: 8px 0; }`,
+    main: sections.join('\n'),
+    dataId: 'radcast-report-data',
+    data: { charts },
+    pageScript: PAGE_SCRIPT,
+  });
 }

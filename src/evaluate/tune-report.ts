@@ -11,7 +11,7 @@
 import type { TuneResult, RankedEntry } from './tune.ts';
 import { NOISE_SE_MULTIPLE } from './tune.ts';
 import { formatStep } from './backtest.ts';
-import { chartJs, escapeHtml, jsonForScript, scriptHash } from './report.ts';
+import { escapeHtml, renderReportPage } from './report.ts';
 
 export interface TuneReportOptions {
   title?: string;
@@ -224,21 +224,10 @@ export function renderTuneReport(r: TuneResult, opts: TuneReportOptions = {}): s
     .map((w, i) => `<tr><th scope="row">${escapeHtml(w.label)}</th>${hm.cells[i].map((c) => `<td>${c ? escapeHtml(fmt(c.mase)) : 'not run'}</td>`).join('')}</tr>`)
     .join('')}</tbody></table>`;
   const skipped = [...r.failed.map((f) => `${f.label}: ${f.code} ${f.message}`), ...r.skipped.map((s) => `${s.label}: ${s.code} ${s.message}`), ...r.notStarted.map((n) => `${n.label}: not started (budget)`)];
-  const cjs = chartJs();
-  return `<!doctype html>
-<html lang="en">
-<head>
-<meta charset="utf-8">
-<meta name="viewport" content="width=device-width, initial-scale=1">
-<meta http-equiv="Content-Security-Policy" content="default-src 'none'; script-src ${scriptHash(cjs)} ${scriptHash(PAGE_SCRIPT)}; style-src 'unsafe-inline'; img-src data:">
-<title>${escapeHtml(title)}</title>
-<style>
-body { font: 14px/1.45 system-ui, sans-serif; margin: 0; color: #1d2630; background: #f6f7f4; }
-header { padding: 18px 28px; background: #20343a; color: #f2f5ef; }
-header h1 { margin: 0 0 4px; font-size: 20px; font-weight: 600; }
-header p { margin: 0; opacity: .8; }
-main { padding: 8px 28px 40px; }
-section { background: #fff; border: 1px solid #d9ddd3; border-radius: 6px; margin: 18px 0; padding: 4px 18px 18px; }
+  return renderReportPage({
+    title,
+    subtitle: `generated ${(opts.generatedAt ?? new Date()).toISOString()} · every setting backtested on the same rolling origins; MASE scaled per origin by the mean absolute seasonal difference over the same span before it (Hyndman & Koehler 2006), so windows compare`,
+    css: `section { background: #fff; border: 1px solid #d9ddd3; border-radius: 6px; margin: 18px 0; padding: 4px 18px 18px; }
 h2 { font-size: 17px; margin: 14px 0 6px; }
 .facts span { display: inline-block; margin: 0 14px 4px 0; color: #4a5a60; }
 table { border-collapse: collapse; margin: 10px 0; }
@@ -249,13 +238,8 @@ pre { background: #f2f4ef; padding: 10px 14px; border-radius: 4px; }
 .grid { display: grid; grid-template-columns: repeat(auto-fit, minmax(520px, 1fr)); gap: 14px; }
 .plot { position: relative; height: 320px; }
 .heatwrap { position: relative; }
-details { color: #4a5a60; margin: 8px 0; }
-</style>
-</head>
-<body>
-<header><h1>${escapeHtml(title)}</h1><p>generated ${escapeHtml((opts.generatedAt ?? new Date()).toISOString())} · every setting backtested on the same rolling origins; MASE scaled per origin by the mean absolute seasonal difference over the same span before it (Hyndman &amp; Koehler 2006), so windows compare</p></header>
-<main>
-<section>
+details { color: #4a5a60; margin: 8px 0; }`,
+    main: `<section>
 <h2>${escapeHtml(r.series)}</h2>
 <p class="facts">${facts.map((f) => `<span>${escapeHtml(f)}</span>`).join('')}</p>
 <p class="noise">${escapeHtml(noiseText)} <small>${escapeHtml(r.noise.rule)}</small></p>
@@ -273,12 +257,9 @@ ${skipped.length ? `<details><summary>${skipped.length} combination(s) not ranke
 <div class="grid">
 ${charts.map((c) => `<figure><div class="plot"><canvas id="${escapeHtml((c as { id: string }).id)}" role="img"></canvas></div></figure>`).join('\n')}
 </div>
-</section>
-</main>
-<script type="application/json" id="radcast-tune-data">${jsonForScript({ heatmap: hm, charts })}</script>
-<script>${cjs}</script>
-<script>${PAGE_SCRIPT}</script>
-</body>
-</html>
-`;
+</section>`,
+    dataId: 'radcast-tune-data',
+    data: { heatmap: hm, charts },
+    pageScript: PAGE_SCRIPT,
+  });
 }
