@@ -101,7 +101,8 @@ describe('InfluxQL injection (real influxd)', () => {
     const name = fc.string({ unit, minLength: 1, maxLength: 16 });
     let k = 0;
     await fc.assert(
-      fc.asyncProperty(name, name, name, name, fc.double({ min: -1e6, max: 1e6, noNaN: true }), async (measurement, field, tagKey, tagValue, value) => {
+      // influxd answers -0 as 0 (seen in a CI run: the sign of a zero float field is not kept), so -0 is mapped to 0.
+      fc.asyncProperty(name, name, name, name, fc.double({ min: -1e6, max: 1e6, noNaN: true }).map((v) => (Object.is(v, -0) ? 0 : v)), async (measurement, field, tagKey, tagValue, value) => {
         fc.pre(field.toLowerCase() !== 'time' && tagKey.toLowerCase() !== 'time');
         const t = T0 + 10 * H + ++k * 1_000;
         const line = new Point(measurement).tag(tagKey, tagValue).floatField(field, value).timestamp(t).toLineProtocol({ convertTime: (v) => String(v) })!;
