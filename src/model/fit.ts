@@ -9,7 +9,7 @@ import { checkDense, checkInt, checkNumber } from './check.ts';
 import { kmeans } from './kmeans.ts';
 import { choleskySolve, factorRidge, type CholeskyFactor } from './linalg.ts';
 import { crossRows, crossWithSelf, matmul } from './blas.ts';
-import { logGammaGradient } from './rbf.ts';
+import { gaussianActivations, logGammaGradient } from './rbf.ts';
 
 /** Defaults of every fit option (the one place they live). */
 export const DEFAULT_FIT_OPTIONS: Readonly<Required<Omit<FitOptions, 'warmStart'>>> = Object.freeze({
@@ -204,11 +204,22 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
   const f = new Float64Array(nSamples * nF);
   const fy = new Float64Array(nSamples * nFY);
   const biasValue = o.bias ? 1 : 0;
+  const nLin = linIdx.length;
+  const xd = x.data;
+  const yd = y.data;
   for (let n = 0; n < nSamples; n++) {
-    f[n * nF] = biasValue;
-    for (let j = 0; j < linIdx.length; j++) f[n * nF + 1 + j] = x.data[n * nFeatures + linIdx[j]];
-    fy.set(f.subarray(n * nF, (n + 1) * nF), n * nFY);
-    fy.set(y.data.subarray(n * H, (n + 1) * H), n * nFY + nF);
+    const fo = n * nF;
+    const fyo = n * nFY;
+    const xo = n * nFeatures;
+    f[fo] = biasValue;
+    fy[fyo] = biasValue;
+    for (let j = 0; j < nLin; j++) {
+      const v = xd[xo + linIdx[j]];
+      f[fo + 1 + j] = v;
+      fy[fyo + 1 + j] = v;
+    }
+    const yo = n * H;
+    for (let c = 0; c < H; c++) fy[fyo + nF + c] = yd[yo + c];
   }
   /** A^T [A | F | Y] style products of a block (nCols wide) over train and validation rows. */
   const products = (a: Float64Array, nCols: number, withSelf: boolean, rhs: Float64Array, nRhs: number): Products => ({
@@ -295,11 +306,8 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
   /** Σ y^2 over the training and the validation rows (for errors from the normal equations). */
   let yyTrain = 0;
   let yyVal = 0;
-  for (let i = 0; i < nSamples * H; i++) {
-    const v = y.data[i] * y.data[i];
-    if (i < nTrain * H) yyTrain += v;
-    else yyVal += v;
-  }
+  for (let i = 0; i < nTrain * H; i++) yyTrain += yd[i] * yd[i];
+  for (let i = nTrain * H; i < nSamples * H; i++) yyVal += yd[i] * yd[i];
   /**
    * Mean squared error of weights W from the normal equations of a row set, without a pass over
    * the rows: |Y - Phi W|^2 = Σ y^2 - 2 <W, B> + <W, G W>. The terms are of the size of Σ y^2, so
@@ -332,7 +340,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
   }
   /** Gaussian activations of rows [r0, r1) into out (nSamples x K). */
   const activations = (g: Float64Array, r0: number, r1: number, out: Float64Array = new Float64Array(nSamples * K)): Float64Array => {
-    for (let n = r0; n < r1; n++) for (let k = 0; k < K; k++) out[n * K + k] = Math.exp(-g[k] * d2[n * K + k]);
+    gaussianActivations(g, d2.subarray(r0 * K, r1 * K), r1 - r0, K, out.subarray(r0 * K, r1 * K));
     return out;
   };
   // Candidate Gaussian shrinkages: the whole grid, or on a warm start the previous choice and
@@ -375,12 +383,11 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
 
   for (let it = 1; it <= widthIterations; it++) {
     // Residuals of the current weights on the training rows: base = Y - F W_F, r = base - E W_E.
-    const base = new Float64Array(nTrain * H);
-    const pf = matmul(f.subarray(0, nTrain * nF), nTrain, nF, cur.wF, H);
-    for (let i = 0; i < nTrain * H; i++) base[i] = y.data[i] - pf[i];
-    const pe0 = matmul(cur.e.subarray(0, nTrain * K), nTrain, K, cur.wE, H);
-    const resTrain = new Float64Array(nTrain * H);
-    for (let i = 0; i < nTrain * H; i++) resTrain[i] = base[i] - pe0[i];
+    // base = Y - F W_F (in place over the product), r = base - E W_E.
+    const base = matmul(f.subarray(0, nTrain * nF), nTrain, nF, cur.wF, H);
+    for (let i = 0; i < nTrain * H; i++) base[i] = yd[i] - base[i];
+    const resTrain = matmul(cur.e.subarray(0, nTrain * K), nTrain, K, cur.wE, H);
+    for (let i = 0; i < nTrain * H; i++) resTrain[i] = base[i] - resTrain[i];
     const gk = logGammaGradient(resTrain, cur.e, d2, nTrain, K, cur.gammas, cur.wE, H);
     const grad = new Float64Array(K);
     if (o.widthMode === 'shared') {
@@ -435,7 +442,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
   // iterative refinement: W += (G + Λ)^-1 (Phi^T (Y - Phi W) - Λ W).
   const allRows = nVal > 0 && o.refitAllRows;
   const finalRows = allRows ? nSamples : nTrain;
-  const sys = allRows && cur.gVal ? { g: cur.gTrain.g.map((v, i) => v + cur.gVal!.g[i]), b: cur.gTrain.b.map((v, i) => v + cur.gVal!.b[i]) } : cur.gTrain;
+  const sys = allRows && cur.gVal ? { g: addArrays(cur.gTrain.g, cur.gVal.g), b: addArrays(cur.gTrain.b, cur.gVal.b) } : cur.gTrain;
   const fac = factor(sys.g, gaussianRidge);
   const w = choleskySolve(fac.factor, sys.b, H);
   for (let s = 0; s < (o.ridge < REFINE_BELOW_RIDGE ? FINAL_REFINE_STEPS : 0); s++) {
@@ -490,6 +497,12 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     ridgeRaised,
   };
   return { model, report };
+}
+
+function addArrays(a: Float64Array, b: Float64Array): Float64Array {
+  const out = new Float64Array(a.length);
+  for (let i = 0; i < a.length; i++) out[i] = a[i] + b[i];
+  return out;
 }
 
 function put(a: Float64Array, i: number, v: number, add: boolean): void {

@@ -4,6 +4,7 @@
  * Householder QR least-squares solver used as the accuracy yardstick.
  */
 import { crossRows, gramCross, residualRows } from './blas.ts';
+import { simdKernels } from './distance.ts';
 
 /** A Cholesky factor of D A D + lambda D^2 (D = diag(scale)), lower triangle row-major. */
 export interface CholeskyFactor {
@@ -25,6 +26,16 @@ export function choleskyScaled(a: Float64Array, p: number, lambda: number | Floa
     scale[i] = v > 0 ? 1 / Math.sqrt(v) : 1;
   }
   const l = new Float64Array(p * p);
+  const k = simdKernels();
+  if (k) {
+    // Scaled lower triangle, then the SIMD factor (same recurrence, dot products summed pairwise).
+    for (let i = 0; i < p; i++) {
+      const si = scale[i];
+      for (let j = 0; j < i; j++) l[i * p + j] = a[i * p + j] * si * scale[j];
+      l[i * p + i] = (a[i * p + i] + lam[i]) * si * si;
+    }
+    return k.cholesky(l, p, l) ? { p, lower: l, scale } : null;
+  }
   for (let i = 0; i < p; i++) {
     for (let j = 0; j <= i; j++) {
       // l_ij = (s_i s_j (a_ij + lambda δij) - Σ_{m<j} l_im l_jm) / l_jj
@@ -50,6 +61,15 @@ export function choleskySolve(f: CholeskyFactor, b: Float64Array, h: number, out
   for (let i = 0; i < p; i++) {
     const s = scale[i];
     for (let c = 0; c < h; c++) out[i * h + c] = b[i * h + c] * s;
+  }
+  const k = simdKernels();
+  if (k) {
+    k.cholSolve(l, p, out, h, out);
+    for (let i = 0; i < p; i++) {
+      const s = scale[i];
+      for (let c = 0; c < h; c++) out[i * h + c] *= s;
+    }
+    return out;
   }
   for (let i = 0; i < p; i++) {
     const io = i * h;

@@ -6,7 +6,7 @@
 import type { Dense, Prediction, RbfModel } from './types.ts';
 import { ModelError } from './errors.ts';
 import { checkDense } from './check.ts';
-import { dist2All, rowNorms2 } from './distance.ts';
+import { dist2All, rowNorms2, simdKernels } from './distance.ts';
 import { matmul } from './blas.ts';
 
 /**
@@ -29,6 +29,17 @@ export function logGammaGradient(res: Float64Array, e: Float64Array, d2: Float64
   }
   const out = new Float64Array(K);
   for (let k = 0; k < K; k++) out[k] = ((2 * gammas[k]) / (nRows * h)) * acc[k];
+  return out;
+}
+
+/**
+ * Gaussian activations out[n, k] = exp(-γ_k d2[n, k]) of nRows rows of K squared distances: the
+ * SIMD kernel when available (within 2 ulp of Math.exp, about 3.5x faster), else Math.exp.
+ */
+export function gaussianActivations(gammas: Float64Array, d2: Float64Array, nRows: number, K: number, out: Float64Array = new Float64Array(nRows * K)): Float64Array {
+  const s = simdKernels();
+  if (s) return s.expNeg(gammas, d2, nRows, K, out);
+  for (let n = 0; n < nRows; n++) for (let k = 0; k < K; k++) out[n * K + k] = Math.exp(-gammas[k] * d2[n * K + k]);
   return out;
 }
 
@@ -77,21 +88,17 @@ export function predictRbf(model: RbfModel, x: Dense): Prediction {
   const gammas = Float64Array.from(model.gammas);
   const w = Float64Array.from(model.weights);
   const d2 = dist2All(x.data, n, d, centres, K, new Float64Array(n * K), rowNorms2(x.data, n, d));
+  const e = gaussianActivations(gammas, d2, n, K, d2);
   const out = new Float64Array(n * H);
   const novelty = new Float64Array(n);
-  const phiK = new Float64Array(K);
   for (let i = 0; i < n; i++) {
     let best = 0;
-    for (let k = 0; k < K; k++) {
-      const a = Math.exp(-gammas[k] * d2[i * K + k]);
-      phiK[k] = a;
-      if (a > best) best = a;
-    }
+    for (let k = 0; k < K; k++) if (e[i * K + k] > best) best = e[i * K + k];
     novelty[i] = best;
     const oo = i * H;
     for (let c = 0; c < H; c++) out[oo + c] = w[c];
     for (let k = 0; k < K; k++) {
-      const a = phiK[k];
+      const a = e[i * K + k];
       const wo = (1 + k) * H;
       for (let c = 0; c < H; c++) out[oo + c] += a * w[wo + c];
     }

@@ -32,6 +32,18 @@ export interface SimdKernels {
   crossRows(a: Float64Array, p: number, r: Float64Array, h: number, r0: number, r1: number, withGram: boolean, out: Float64Array): Float64Array;
   /** out[i*n + j] = max(0, a2[i] + c2[j] - 2 Σ_l a[i*k + l] c[j*k + l]) (a is m x k, c is n x k). */
   dist2(a: Float64Array, a2: Float64Array, m: number, c: Float64Array, c2: Float64Array, n: number, k: number, out: Float64Array): Float64Array;
+  /**
+   * Cholesky factor of the symmetric p x p matrix a (row-major, only its lower triangle is read)
+   * into out (lower triangle, zeros above). Returns false when a pivot is not positive.
+   */
+  cholesky(a: Float64Array, p: number, out: Float64Array): boolean;
+  /** out (p x h) = (L L^T)^-1 b for a factor L from cholesky (same operation order as the scalar loops). */
+  cholSolve(lower: Float64Array, p: number, b: Float64Array, h: number, out: Float64Array): Float64Array;
+  /**
+   * Gaussian activations out[i, j] = exp(-g[j] d[i, j]) for m rows of k squared distances
+   * (row-major). Within about 1 ulp of Math.exp (degree-13 polynomial after reduction by ln 2).
+   */
+  expNeg(g: Float64Array, d: Float64Array, m: number, k: number, out: Float64Array): Float64Array;
 }
 
 interface Exports {
@@ -43,6 +55,9 @@ interface Exports {
   transpose(src: number, rows: number, cols: number, stride: number, dst: number): void;
   ownDist(x: number, m: number, k: number, c: number, labels: number, out: number): void;
   seedUpdate(x: number, m: number, k: number, c: number, mind: number, first: number): number;
+  cholesky(a: number, p: number): number;
+  cholSolve(l: number, p: number, b: number, h: number): void;
+  expNeg(g: number, d: number, m: number, k: number, out: number): void;
 }
 
 const PAGE = 65536;
@@ -215,9 +230,12 @@ export function loadSimdKernels(): SimdKernels | null {
           f64.set(src.subarray(r0 * w, r1 * w), o);
           return;
         }
+        // Element loop: a subarray per row costs more than the copy itself for narrow rows.
         for (let i = 0; i < n; i++) {
-          f64.set(src.subarray((r0 + i) * w, (r0 + i + 1) * w), o + i * we);
-          f64[o + i * we + w] = 0;
+          const so = (r0 + i) * w;
+          const to = o + i * we;
+          for (let j = 0; j < w; j++) f64[to + j] = src[so + j];
+          f64[to + w] = 0;
         }
       };
       putRows(a, p, pe, pA);
@@ -237,6 +255,61 @@ export function loadSimdKernels(): SimdKernels | null {
         const o = withGram ? p : 0;
         for (let c = 0; c < h; c++) out[i * nc + o + c] = f64[p2 / 8 + i * he + c];
       }
+      return out;
+    },
+    cholesky(a, p, out) {
+      owner = null;
+      reserve(p * p * 8);
+      f64.set(a.subarray(0, p * p), 0);
+      const bad = ex.cholesky(0, p);
+      if (bad !== 0) return false;
+      out.set(f64.subarray(0, p * p));
+      for (let i = 0; i < p; i++) out.fill(0, i * p + i + 1, (i + 1) * p);
+      return true;
+    },
+    expNeg(g, d, m, k, out) {
+      owner = null;
+      const ke = k + (k & 1);
+      const pg = 0;
+      const pd = align16(pg + ke * 8);
+      const po = align16(pd + m * ke * 8);
+      reserve(po + m * ke * 8);
+      f64.set(g.subarray(0, k), pg / 8);
+      const od = pd / 8;
+      const oo = po / 8;
+      if (ke === k) {
+        f64.set(d.subarray(0, m * k), od);
+        ex.expNeg(pg, pd, m, ke, po);
+        out.set(f64.subarray(oo, oo + m * k));
+        return out;
+      }
+      f64[pg / 8 + k] = 0;
+      for (let i = 0; i < m; i++) {
+        for (let j = 0; j < k; j++) f64[od + i * ke + j] = d[i * k + j];
+        f64[od + i * ke + k] = 0;
+      }
+      ex.expNeg(pg, pd, m, ke, po);
+      for (let i = 0; i < m; i++) for (let j = 0; j < k; j++) out[i * k + j] = f64[oo + i * ke + j];
+      return out;
+    },
+    cholSolve(lower, p, b, h, out) {
+      owner = null;
+      const he = h + (h & 1);
+      const pl = 0;
+      const pb = align16(pl + p * p * 8);
+      reserve(pb + p * he * 8);
+      f64.set(lower.subarray(0, p * p), pl / 8);
+      const ob = pb / 8;
+      if (he === h) f64.set(b.subarray(0, p * h), ob);
+      else {
+        for (let i = 0; i < p; i++) {
+          f64.set(b.subarray(i * h, (i + 1) * h), ob + i * he);
+          f64[ob + i * he + h] = 0;
+        }
+      }
+      ex.cholSolve(pl, p, pb, he);
+      if (he === h) out.set(f64.subarray(ob, ob + p * h));
+      else for (let i = 0; i < p; i++) out.set(f64.subarray(ob + i * he, ob + i * he + h), i * h);
       return out;
     },
     dist2(a, a2, m, c, c2, n, k, out) {

@@ -7,6 +7,7 @@ import fc from 'fast-check';
 import { dist2Scalar, rowNorms2, simdKernels, useKernels } from '../../../src/model/distance.ts';
 import { loadSimdKernels } from '../../../src/model/wasm/kernels.ts';
 import { crossProduct, gram } from '../../../src/model/blas.ts';
+import { choleskyScaled, choleskySolve } from '../../../src/model/linalg.ts';
 import { DEFAULT_FIT_OPTIONS, fitRbf, kmeans, predictRbf } from '../../../src/model/index.ts';
 import { lagSamples, noise } from './helpers.ts';
 
@@ -105,6 +106,69 @@ describe('SIMD kernels', () => {
       }),
       { numRuns: 40 },
     );
+  });
+  it('cholesky and cholSolve agree with the scalar loops (factor to rounding, solve bit for bit from the same factor)', () => {
+    fc.assert(
+      fc.property(fc.integer({ min: 1, max: 41 }), fc.integer({ min: 1, max: 27 }), fc.integer({ min: 0, max: 1e6 }), (p, h, seed) => {
+        // A well-conditioned SPD matrix G = A^T A + p I and a right-hand side.
+        const a = randomMatrix(2 * p + 3, p, seed);
+        const g = gram(a, p, 0, 2 * p + 3);
+        for (let i = 0; i < p; i++) g[i * p + i] += p;
+        const b = randomMatrix(p, h, seed + 3);
+        const fSimd = choleskyScaled(g, p, 0)!;
+        useKernels('js');
+        const fJs = choleskyScaled(g, p, 0)!;
+        const xJs = choleskySolve(fJs, b, h);
+        useKernels('auto');
+        for (let i = 0; i < p; i++) {
+          for (let j = 0; j < p; j++) {
+            if (j > i) expect(fSimd.lower[i * p + j]).toBe(0);
+            else expect(fSimd.lower[i * p + j]).toBeCloseTo(fJs.lower[i * p + j], 12);
+          }
+        }
+        // Same factor in, same operation order: the SIMD triangular solves equal the scalar ones exactly.
+        expect(Array.from(choleskySolve(fJs, b, h))).toEqual(Array.from(xJs));
+        // And the solution solves the system.
+        const x = choleskySolve(fSimd, b, h);
+        for (let i = 0; i < p; i++) {
+          for (let c = 0; c < h; c++) {
+            let s = 0;
+            for (let j = 0; j < p; j++) s += g[i * p + j] * x[j * h + c];
+            expect(s).toBeCloseTo(b[i * h + c], 9);
+          }
+        }
+      }),
+      { numRuns: 40 },
+    );
+  });
+
+  it('expNeg is within 2 ulp of Math.exp over the activation range, 0 where Math.exp underflows, for odd and even widths', () => {
+    fc.assert(
+      fc.property(fc.integer({ min: 1, max: 9 }), fc.integer({ min: 1, max: 13 }), fc.integer({ min: 0, max: 1e6 }), (m, k, seed) => {
+        const z = noise(seed);
+        const g = Float64Array.from({ length: k }, () => 0.05 + Math.abs(z()) * 3);
+        // Squared distances from 0 to far beyond the underflow of e^(-g d) (g d up to ~900).
+        const d = Float64Array.from({ length: m * k }, (_, i) => (i % 5 === 0 ? 0 : Math.abs(z()) * 10 ** ((i % 4) - 1) * 30));
+        const out = simd!.expNeg(g, d, m, k, new Float64Array(m * k));
+        for (let i = 0; i < m * k; i++) {
+          const ref = Math.exp(-g[i % k] * d[i]);
+          if (ref < 2.3e-308) expect(out[i]).toBeLessThanOrEqual(2 * ref + 5e-324);
+          else expect(Math.abs(out[i] - ref)).toBeLessThanOrEqual(2 * Number.EPSILON * ref);
+        }
+      }),
+      { numRuns: 60 },
+    );
+    const at = (x: number): number => simd!.expNeg(Float64Array.of(1), Float64Array.of(x), 1, 1, new Float64Array(1))[0];
+    expect(at(0)).toBe(1);
+    expect(at(746)).toBe(0);
+    expect(at(Infinity)).toBe(0);
+  });
+
+  it('cholesky reports an indefinite matrix as no factor, like the scalar loops', () => {
+    const g = Float64Array.from([4, 2, 0, 2, 1, 0, 0, 0, 3]); // rank-deficient leading 2 x 2 block
+    expect(choleskyScaled(g, 3, 0)).toBeNull();
+    useKernels('js');
+    expect(choleskyScaled(g, 3, 0)).toBeNull();
   });
 });
 

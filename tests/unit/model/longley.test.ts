@@ -29,17 +29,20 @@ function digits(b: ArrayLike<number>): number {
 }
 
 describe('Longley (NIST StRD certified coefficients)', () => {
-  it('the fit path (equilibrated Cholesky + one refinement) reaches >= 10 digits on every coefficient (measured 11.1)', () => {
+  it('the fit path (equilibrated Cholesky + one refinement) reaches >= 10 digits on every coefficient (measured 11.0 SIMD kernels, 11.1 scalar)', () => {
     const r = ridgeSolve(a, p, y, 1, 0, n, 0, 1);
     expect(r).not.toBeNull();
     expect(r!.raised).toBe(false);
     expect(digits(r!.w)).toBeGreaterThanOrEqual(10);
   });
 
-  it('plain equilibrated Cholesky on the normal equations is only just at 7 digits (measured 7.2): why the refinement is there', () => {
+  // Unrefined, the digits depend on the summation order of the factor's dot products: measured
+  // 6.9 with the SIMD kernels (pairwise lanes) and 7.2 with the scalar loops. That is too close to
+  // the 7-digit bar to rely on, which is why every nearly unpenalised solve gets a refinement step.
+  it('plain equilibrated Cholesky on the normal equations is only about 7 digits (measured 6.9-7.2): why the refinement is there', () => {
     const d0 = digits(ridgeSolve(a, p, y, 1, 0, n, 0, 0)!.w);
     const d1 = digits(ridgeSolve(a, p, y, 1, 0, n, 0, 1)!.w);
-    expect(d0).toBeGreaterThanOrEqual(7);
+    expect(d0).toBeGreaterThanOrEqual(6.5);
     expect(d0).toBeLessThan(9);
     expect(d1).toBeGreaterThan(d0 + 2);
   });
