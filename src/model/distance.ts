@@ -116,18 +116,41 @@ export function dist2All(
   return out;
 }
 
-/** A distance kernel: out = squared distances of nRows rows to nCentres centres. */
-export type DistanceKernel = (x: Float64Array, nRows: number, nFeatures: number, c: Float64Array, nCentres: number, out?: Float64Array) => Float64Array;
+/**
+ * One k-means distance pass over rows prepared once (as Lloyd's algorithm keeps them): given the
+ * centres, either all squared distances (n x K, into a reused buffer) or only what an assignment
+ * needs (nearest centre, its distance, the second smallest). Returns a checksum of the result.
+ */
+export type DistancePassKernel = (c: Float64Array, nCentres: number) => number;
 
-/** The kernels this process can use, and which one k-means uses (for benches and reports). */
-export function distanceKernels(): { active: string; all: [string, DistanceKernel][] } {
-  const all: [string, DistanceKernel][] = [
-    ['js', (x, n, d, c, k, out = new Float64Array(n * k)) => {
-      dist2Scalar(x, rowNorms2(x, n, d), n, d, c, rowNorms2(c, k, d), k, out);
-      return out;
+/** The distance passes this process can run, for benches and reports: [name, prepare(rows)]. */
+export function distanceKernels(): { active: string; all: [string, (x: Float64Array, nRows: number, nFeatures: number) => DistancePassKernel][] } {
+  const all: [string, (x: Float64Array, nRows: number, nFeatures: number) => DistancePassKernel][] = [
+    ['js', (x, n, d) => {
+      const x2 = rowNorms2(x, n, d);
+      let out = new Float64Array(0);
+      return (c, k) => {
+        if (out.length !== n * k) out = new Float64Array(n * k);
+        dist2Scalar(x, x2, n, d, c, rowNorms2(c, k, d), k, out);
+        return out[n * k - 1];
+      };
     }],
   ];
   const s = simdKernels();
-  if (s) all.push(['wasm', (x, n, d, c, k, out = new Float64Array(n * k)) => s.dist2(x, rowNorms2(x, n, d), n, c, rowNorms2(c, k, d), k, d, out)]);
+  if (s) {
+    all.push(['wasm', (x, n, d) => {
+      const res = s.resident(x, rowNorms2(x, n, d), n, d);
+      let out = new Float64Array(0);
+      return (c, k) => {
+        if (out.length !== n * k) out = new Float64Array(n * k);
+        res.dist2(c, rowNorms2(c, k, d), k, out);
+        return out[n * k - 1];
+      };
+    }]);
+    all.push(['wasm-asg', (x, n, d) => {
+      const res = s.resident(x, rowNorms2(x, n, d), n, d);
+      return (c, k) => res.assign(null, n, c, rowNorms2(c, k, d), k).second[n - 1];
+    }]);
+  }
   return { active: s ? 'wasm-simd' : 'js-scalar', all };
 }

@@ -126,6 +126,17 @@ interface DistancePass {
   own(c: Float64Array, K: number, labels: Int32Array, out: Float64Array): Float64Array;
   /** Squared distances (count x K) of the rows rows[0..count) only. */
   rows(rows: Int32Array, count: number, c: Float64Array, c2: Float64Array, K: number, out: Float64Array): Float64Array;
+  /** Nearest centre, its squared distance and the second smallest one, of rows[0..count) (all when null). */
+  assign(rows: Int32Array | null, count: number, c: Float64Array, c2: Float64Array, K: number): Assignment;
+  /** Half the distance from each centre to the nearest other centre. */
+  gaps(c: Float64Array, K: number, half: Float64Array): Float64Array;
+}
+
+/** Views valid until the next call on the pass. */
+interface Assignment {
+  labels: Int32Array;
+  best: Float64Array;
+  second: Float64Array;
 }
 
 function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): DistancePass {
@@ -137,9 +148,13 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
       rows: (rows, count, c, c2, K, out) => res.dist2Rows(rows, count, c, c2, K, out),
       own: (c, K, labels, out) => res.ownDist2(c, K, labels, out),
       seed: (centre, first) => res.seedUpdate(centre, first),
+      assign: (rows, count, c, c2, K) => res.assign(rows, count, c, c2, K),
+      gaps: (c, K, half) => res.centreGaps(c, K, half),
     };
   }
-  return {
+  let buf = new Float64Array(0);
+  let found: Assignment = { labels: new Int32Array(0), best: new Float64Array(0), second: new Float64Array(0) };
+  const pass: DistancePass = {
     all(c, c2, K, out) {
       dist2Scalar(x, x2, n, d, c, c2, K, out);
       return out;
@@ -184,7 +199,52 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
       dist2Scalar(g, g2, count, d, c, c2, K, out);
       return out;
     },
+    assign(rows, count, c, c2, K) {
+      if (buf.length < count * K) buf = new Float64Array(n * K);
+      if (found.labels.length < count) found = { labels: new Int32Array(n), best: new Float64Array(n), second: new Float64Array(n) };
+      const dist = rows ? pass.rows(rows, count, c, c2, K, buf.subarray(0, count * K)) : pass.all(c, c2, K, buf.subarray(0, count * K));
+      argmin2Rows(dist, count, K, found);
+      return found;
+    },
+    gaps(c, K, half) {
+      half.fill(Infinity);
+      for (let k = 0; k < K; k++) {
+        for (let k2 = k + 1; k2 < K; k2++) {
+          let s = 0;
+          for (let j = 0; j < d; j++) {
+            const e = c[k * d + j] - c[k2 * d + j];
+            s += e * e;
+          }
+          const h = 0.5 * Math.sqrt(s);
+          if (h < half[k]) half[k] = h;
+          if (h < half[k2]) half[k2] = h;
+        }
+      }
+      return half;
+    },
   };
+  return pass;
+}
+
+/** Per row of dist (count x K): first smallest value, its column, and the second smallest value. */
+function argmin2Rows(dist: Float64Array, count: number, K: number, out: Assignment): void {
+  for (let t = 0; t < count; t++) {
+    const o = t * K;
+    let bk = 0;
+    let b1 = dist[o];
+    let b2 = Infinity;
+    for (let k = 1; k < K; k++) {
+      const v = dist[o + k];
+      if (v < b1) {
+        b2 = b1;
+        b1 = v;
+        bk = k;
+      } else if (v < b2) b2 = v;
+    }
+    out.labels[t] = bk;
+    out.best[t] = b1;
+    out.second[t] = b2;
+  }
 }
 
 /** labels[i] = argmin_k dist2[i,k] (first on ties), mind[i] its value; returns the summed minimum. */
@@ -265,8 +325,6 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
   const moved = new Float64Array(K);
   const half = new Float64Array(K);
   const todo = new Int32Array(n);
-  /** Distance rows of the samples being reassigned (reused every pass). */
-  const rowsBuf = new Float64Array(n * K);
   const inertiaByPass: number[] = [];
   let passes = 0;
   let settled = false;
@@ -289,35 +347,26 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
     labels[i] = to;
   };
 
-  /** Full assignment of the given rows from their distance rows (count x K). */
-  const assignRows = (rows: Int32Array | null, count: number, dist: Float64Array): void => {
+  /** Full assignment of the given rows (all when null) to their nearest centres. */
+  const assignRows = (rows: Int32Array | null, count: number): void => {
+    const found = pass.assign(rows, count, centres, c2, K);
+    const { labels: to, best, second } = found;
     for (let t = 0; t < count; t++) {
       const i = rows ? rows[t] : t;
-      const o = t * K;
-      let bk = 0;
-      let b1 = dist[o];
-      let b2 = Infinity;
-      for (let k = 1; k < K; k++) {
-        const v = dist[o + k];
-        if (v < b1) {
-          b2 = b1;
-          b1 = v;
-          bk = k;
-        } else if (v < b2) b2 = v;
-      }
+      const bk = to[t];
       const old = labels[i];
       if (old !== bk) {
         changed++;
         moveSample(i, old, bk);
       }
-      own[i] = b1;
-      lower[i] = Math.sqrt(b2);
+      own[i] = best[t];
+      lower[i] = Math.sqrt(second[t]);
     }
   };
 
   const full = (): void => {
     rowNorms2(centres, K, d, c2);
-    assignRows(null, n, pass.all(centres, c2, K, rowsBuf));
+    assignRows(null, n);
   };
 
   const bounded = (): void => {
@@ -334,19 +383,7 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
         mk = k;
       } else if (v > m2) m2 = v;
     }
-    half.fill(Infinity);
-    for (let k = 0; k < K; k++) {
-      for (let k2 = k + 1; k2 < K; k2++) {
-        let s = 0;
-        for (let j = 0; j < d; j++) {
-          const e = centres[k * d + j] - centres[k2 * d + j];
-          s += e * e;
-        }
-        const h = 0.5 * Math.sqrt(s);
-        if (h < half[k]) half[k] = h;
-        if (h < half[k2]) half[k2] = h;
-      }
-    }
+    pass.gaps(centres, K, half);
     let count = 0;
     // u = |x_i - c_a| in the exact difference form, for every sample.
     pass.own(centres, K, labels, own);
@@ -357,7 +394,7 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
       const bound = l > half[a] ? l : half[a];
       if (Math.sqrt(own[i]) >= bound * (1 - 1e-9)) todo[count++] = i;
     }
-    if (count > 0) assignRows(todo, count, pass.rows(todo, count, centres, c2, K, rowsBuf.subarray(0, count * K)));
+    if (count > 0) assignRows(todo, count);
   };
 
   const sumOwn = (): number => {

@@ -19,12 +19,17 @@ import wabtInit from 'wabt';
 const dir = path.dirname(fileURLToPath(import.meta.url));
 
 /** One register block of R rows x V vectors (2V columns) at rows i.., columns j.. */
-function block(R: number, V: number): string {
+/** Kernel variants: 'generic' (mode chosen at run time), 'dist' (distance form only), 'distIdx' (rows through an index list). */
+type Variant = 'generic' | 'dist' | 'distIdx';
+
+function block(R: number, V: number, variant: Variant = 'generic'): string {
+  // Row r of the band: i + r, or idx[i + r] for the indexed variant (output rows stay i + r).
+  const rowOf = (r: number) => (variant === 'distIdx' ? `(i32.load (i32.add (local.get $idx) (i32.shl (i32.add (local.get $i) (i32.const ${r})) (i32.const 2))))` : `(i32.add (local.get $i) (i32.const ${r}))`);
   const acc = (r: number, v: number) => `$s${r}${v}`;
   const lines: string[] = [];
   for (let r = 0; r < R; r++) for (let v = 0; v < V; v++) lines.push(`(local.set ${acc(r, v)} (f64x2.splat (f64.const 0)))`);
   // pointers: $q<r> = &A[i + r, 0], $pb = &B[0, j]; all advance once per step of the shared axis.
-  for (let r = 0; r < R; r++) lines.push(`(local.set $q${r} (i32.add (local.get $a) (i32.mul (i32.add (local.get $i) (i32.const ${r})) (local.get $rowa))))`);
+  for (let r = 0; r < R; r++) lines.push(`(local.set $q${r} (i32.add (local.get $a) (i32.mul ${rowOf(r)} (local.get $rowa))))`);
   lines.push('(local.set $pb (i32.add (local.get $b) (i32.shl (local.get $j) (i32.const 3))))');
   lines.push('(local.set $pend (i32.add (local.get $q0) (local.get $rowa)))');
   const body: string[] = [];
@@ -40,9 +45,10 @@ function block(R: number, V: number): string {
   for (let r = 0; r < R; r++) {
     for (let v = 0; v < V; v++) {
       const dst = `(i32.add (local.get $c) (i32.shl (i32.add (i32.mul (i32.add (local.get $i) (i32.const ${r})) (local.get $n)) (i32.add (local.get $j) (i32.const ${2 * v}))) (i32.const 3)))`;
-      const dist = `(f64x2.pmax (f64x2.splat (f64.const 0)) (f64x2.sub (f64x2.add (v128.load64_splat (i32.add (local.get $a2) (i32.shl (i32.add (local.get $i) (i32.const ${r})) (i32.const 3)))) (v128.load (i32.add (local.get $b2) (i32.shl (i32.add (local.get $j) (i32.const ${2 * v})) (i32.const 3))))) (f64x2.add (local.get ${acc(r, v)}) (local.get ${acc(r, v)}))))`;
+      const dist = `(f64x2.pmax (f64x2.splat (f64.const 0)) (f64x2.sub (f64x2.add (v128.load64_splat (i32.add (local.get $a2) (i32.shl ${rowOf(r)} (i32.const 3)))) (v128.load (i32.add (local.get $b2) (i32.shl (i32.add (local.get $j) (i32.const ${2 * v})) (i32.const 3))))) (f64x2.add (local.get ${acc(r, v)}) (local.get ${acc(r, v)}))))`;
       const sum = `(f64x2.add (v128.load ${dst}) (local.get ${acc(r, v)}))`;
-      lines.push(`(if (i32.eq (local.get $mode) (i32.const 1)) (then (v128.store ${dst} ${dist})) (else (if (i32.ge_u (local.get $mode) (i32.const 2)) (then (v128.store ${dst} ${sum})) (else (v128.store ${dst} (local.get ${acc(r, v)}))))))`);
+      if (variant !== 'generic') lines.push(`(v128.store ${dst} ${dist})`);
+      else lines.push(`(if (i32.eq (local.get $mode) (i32.const 1)) (then (v128.store ${dst} ${dist})) (else (if (i32.ge_u (local.get $mode) (i32.const 2)) (then (v128.store ${dst} ${sum})) (else (v128.store ${dst} (local.get ${acc(r, v)}))))))`);
     }
   }
   return lines.join('\n      ');
@@ -110,19 +116,40 @@ function substitutionRow(tag: string, from: string, to: string, at: string): str
         (br $sloop${tag})))`;
 }
 
-function kernel(): string {
+/**
+ * $s = |a - b|^2 in the difference form for rows at $pa and `pb` of $k values ($k2 = $k rounded
+ * down to even): pairs of lanes, then the odd last value. Uses locals $l $acc $e $t.
+ */
+function diffSquared(pb: string): string {
+  return `(local.set $acc (f64x2.splat (f64.const 0)))
+      (local.set $l (i32.const 0))
+      (block $lend (loop $lloop (br_if $lend (i32.ge_u (local.get $l) (local.get $k2)))
+        (local.set $e (f64x2.sub (v128.load (i32.add (local.get $pa) (i32.shl (local.get $l) (i32.const 3))))
+                                 (v128.load (i32.add (local.get ${pb}) (i32.shl (local.get $l) (i32.const 3))))))
+        (local.set $acc (f64x2.add (local.get $acc) (f64x2.mul (local.get $e) (local.get $e))))
+        (local.set $l (i32.add (local.get $l) (i32.const 2)))
+        (br $lloop)))
+      (local.set $s (f64.add (f64x2.extract_lane 0 (local.get $acc)) (f64x2.extract_lane 1 (local.get $acc))))
+      (if (i32.and (local.get $k) (i32.const 1)) (then
+        (local.set $t (f64.sub (f64.load (i32.add (local.get $pa) (i32.shl (local.get $k2) (i32.const 3))))
+                               (f64.load (i32.add (local.get ${pb}) (i32.shl (local.get $k2) (i32.const 3))))))
+        (local.set $s (f64.add (local.get $s) (f64.mul (local.get $t) (local.get $t))))))`;
+}
+
+function kernel(variant: Variant = 'generic'): string {
   const locals = ['(local $i i32) (local $j i32) (local $pb i32) (local $pend i32) (local $rowa i32) (local $rowb i32)', '(local $q0 i32) (local $q1 i32) (local $q2 i32) (local $q3 i32)', '(local $x v128) (local $y0 v128) (local $y1 v128)'];
   for (let r = 0; r < 4; r++) locals.push(`(local $s${r}0 v128) (local $s${r}1 v128)`);
   // Column loop for a band of R rows: blocks of 4 columns, then one of 2.
   const band = (R: number) => `(local.set $j (if (result i32) (i32.eq (local.get $mode) (i32.const 3)) (then (i32.and (local.get $i) (i32.const -2))) (else (i32.const 0))))
     (block $jend${R} (loop $jloop${R} (br_if $jend${R} (i32.gt_s (i32.add (local.get $j) (i32.const 4)) (local.get $n)))
-      ${block(R, 2)}
+      ${block(R, 2, variant)}
       (local.set $j (i32.add (local.get $j) (i32.const 4)))
       (br $jloop${R})))
     (if (i32.lt_s (local.get $j) (local.get $n)) (then
-      ${block(R, 1)}))`;
-  return `(func $kernel (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32) (param $c i32)
-      (param $mode i32) (param $a2 i32) (param $b2 i32)
+      ${block(R, 1, variant)}))`;
+  const name = variant === 'generic' ? '$kernel' : variant === 'dist' ? '$kernelDist' : '$kernelDistIdx';
+  return `(func ${name} (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32) (param $c i32)
+      (param $mode i32) (param $a2 i32) (param $b2 i32) (param $idx i32)
     ${locals.join('\n    ')}
     (local.set $rowa (i32.shl (local.get $k) (i32.const 3)))
     (local.set $rowb (i32.shl (local.get $n) (i32.const 3)))
@@ -146,17 +173,22 @@ const wat = `;; Generated by src/model/wasm/build.ts; edit that file, not this o
 ;; ownDist(x, m, k, c, labels, out):    out[i] = |x_i - c_labels[i]|^2
 ;; cholesky(a, p) -> 0 | i + 1:          in-place lower Cholesky factor (row-major)
 ;; cholSolve(l, p, b, h):               B := (L L^T)^-1 B in place (h even)
+;; distIdx(a, idx, m, k, b, n, a2, b2, c): dist2 of the rows idx[0..m) of A
+;; argmin2(d, m, n, lab, best, second): per-row argmin and the two smallest values
+;; centreGaps(c, n, k, half):          half the distance from each centre to the nearest other one
 ;; expNeg(g, d, m, k, out):             out[i,j] = exp(-g[j] d[i,j])   (k even)
 ;; Pointers are byte offsets into the exported memory (16-byte aligned).
 (module
   (memory (export "memory") 1)
   ${kernel()}
+  ${kernel('dist')}
+  ${kernel('distIdx')}
   (func (export "gemm") (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32) (param $c i32)
     (call $kernel (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
-      (i32.const 0) (i32.const 0) (i32.const 0)))
+      (i32.const 0) (i32.const 0) (i32.const 0) (i32.const 0)))
   (func (export "gemmAdd") (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32) (param $c i32)
     (call $kernel (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
-      (i32.const 2) (i32.const 0) (i32.const 0)))
+      (i32.const 2) (i32.const 0) (i32.const 0) (i32.const 0)))
   ;; out[i] = |x_i - c_{labels[i]}|^2 (difference form; x m x k, c row-major, labels i32).
   (func (export "ownDist") (param $x i32) (param $m i32) (param $k i32) (param $c i32) (param $labels i32) (param $out i32)
     (local $i i32) (local $l i32) (local $k2 i32) (local $pa i32) (local $pc i32) (local $acc v128) (local $e v128) (local $s f64) (local $t f64)
@@ -164,19 +196,7 @@ const wat = `;; Generated by src/model/wasm/build.ts; edit that file, not this o
     (block $iend (loop $iloop (br_if $iend (i32.ge_s (local.get $i) (local.get $m)))
       (local.set $pa (i32.add (local.get $x) (i32.shl (i32.mul (local.get $i) (local.get $k)) (i32.const 3))))
       (local.set $pc (i32.add (local.get $c) (i32.shl (i32.mul (i32.load (i32.add (local.get $labels) (i32.shl (local.get $i) (i32.const 2)))) (local.get $k)) (i32.const 3))))
-      (local.set $acc (f64x2.splat (f64.const 0)))
-      (local.set $l (i32.const 0))
-      (block $lend (loop $lloop (br_if $lend (i32.ge_u (local.get $l) (local.get $k2)))
-        (local.set $e (f64x2.sub (v128.load (i32.add (local.get $pa) (i32.shl (local.get $l) (i32.const 3))))
-                                 (v128.load (i32.add (local.get $pc) (i32.shl (local.get $l) (i32.const 3))))))
-        (local.set $acc (f64x2.add (local.get $acc) (f64x2.mul (local.get $e) (local.get $e))))
-        (local.set $l (i32.add (local.get $l) (i32.const 2)))
-        (br $lloop)))
-      (local.set $s (f64.add (f64x2.extract_lane 0 (local.get $acc)) (f64x2.extract_lane 1 (local.get $acc))))
-      (if (i32.and (local.get $k) (i32.const 1)) (then
-        (local.set $t (f64.sub (f64.load (i32.add (local.get $pa) (i32.shl (local.get $k2) (i32.const 3))))
-                               (f64.load (i32.add (local.get $pc) (i32.shl (local.get $k2) (i32.const 3))))))
-        (local.set $s (f64.add (local.get $s) (f64.mul (local.get $t) (local.get $t))))))
+      ${diffSquared('$pc')}
       (f64.store (i32.add (local.get $out) (i32.shl (local.get $i) (i32.const 3))) (local.get $s))
       (local.set $i (i32.add (local.get $i) (i32.const 1)))
       (br $iloop))))
@@ -186,19 +206,7 @@ const wat = `;; Generated by src/model/wasm/build.ts; edit that file, not this o
     (local.set $k2 (i32.and (local.get $k) (i32.const -2)))
     (block $iend (loop $iloop (br_if $iend (i32.ge_s (local.get $i) (local.get $m)))
       (local.set $pa (i32.add (local.get $x) (i32.shl (i32.mul (local.get $i) (local.get $k)) (i32.const 3))))
-      (local.set $acc (f64x2.splat (f64.const 0)))
-      (local.set $l (i32.const 0))
-      (block $lend (loop $lloop (br_if $lend (i32.ge_u (local.get $l) (local.get $k2)))
-        (local.set $e (f64x2.sub (v128.load (i32.add (local.get $pa) (i32.shl (local.get $l) (i32.const 3))))
-                                 (v128.load (i32.add (local.get $c) (i32.shl (local.get $l) (i32.const 3))))))
-        (local.set $acc (f64x2.add (local.get $acc) (f64x2.mul (local.get $e) (local.get $e))))
-        (local.set $l (i32.add (local.get $l) (i32.const 2)))
-        (br $lloop)))
-      (local.set $s (f64.add (f64x2.extract_lane 0 (local.get $acc)) (f64x2.extract_lane 1 (local.get $acc))))
-      (if (i32.and (local.get $k) (i32.const 1)) (then
-        (local.set $t (f64.sub (f64.load (i32.add (local.get $pa) (i32.shl (local.get $k2) (i32.const 3))))
-                               (f64.load (i32.add (local.get $c) (i32.shl (local.get $k2) (i32.const 3))))))
-        (local.set $s (f64.add (local.get $s) (f64.mul (local.get $t) (local.get $t))))))
+      ${diffSquared('$c')}
       (local.set $pm (i32.add (local.get $mind) (i32.shl (local.get $i) (i32.const 3))))
       (if (i32.eqz (local.get $first)) (then (local.set $s (f64.min (local.get $s) (f64.load (local.get $pm))))))
       (f64.store (local.get $pm) (local.get $s))
@@ -310,11 +318,63 @@ const wat = `;; Generated by src/model/wasm/build.ts; edit that file, not this o
       (br $iloop))))
   (func (export "gemmAddUpper") (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32) (param $c i32)
     (call $kernel (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
-      (i32.const 3) (i32.const 0) (i32.const 0)))
+      (i32.const 3) (i32.const 0) (i32.const 0) (i32.const 0)))
   (func (export "dist2") (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32)
       (param $a2 i32) (param $b2 i32) (param $c i32)
-    (call $kernel (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
-      (i32.const 1) (local.get $a2) (local.get $b2)))
+    (call $kernelDist (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
+      (i32.const 1) (local.get $a2) (local.get $b2) (i32.const 0)))
+  ;; distIdx(a, idx, m, k, b, n, a2, b2, c): dist2 of the rows idx[0..m) of A (row i of C is row idx[i] of A).
+  (func (export "distIdx") (param $a i32) (param $idx i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32)
+      (param $a2 i32) (param $b2 i32) (param $c i32)
+    (call $kernelDistIdx (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
+      (i32.const 1) (local.get $a2) (local.get $b2) (local.get $idx)))
+  ;; argmin2(d, m, n, lab, best, second): per row of D (m x n) the first smallest value, its column,
+  ;; and the second smallest value (Infinity when n = 1).
+  (func (export "argmin2") (param $d i32) (param $m i32) (param $n i32) (param $lab i32) (param $best i32) (param $second i32)
+    (local $i i32) (local $k i32) (local $o i32) (local $bk i32) (local $b1 f64) (local $b2 f64) (local $v f64)
+    (block $iend (loop $iloop (br_if $iend (i32.ge_s (local.get $i) (local.get $m)))
+      (local.set $o (i32.add (local.get $d) (i32.shl (i32.mul (local.get $i) (local.get $n)) (i32.const 3))))
+      (local.set $b1 (f64.load (local.get $o)))
+      (local.set $b2 (f64.const inf))
+      (local.set $bk (i32.const 0))
+      (local.set $k (i32.const 1))
+      (block $kend (loop $kloop (br_if $kend (i32.ge_s (local.get $k) (local.get $n)))
+        (local.set $v (f64.load (i32.add (local.get $o) (i32.shl (local.get $k) (i32.const 3)))))
+        (if (f64.lt (local.get $v) (local.get $b1))
+          (then (local.set $b2 (local.get $b1)) (local.set $b1 (local.get $v)) (local.set $bk (local.get $k)))
+          (else (if (f64.lt (local.get $v) (local.get $b2)) (then (local.set $b2 (local.get $v))))))
+        (local.set $k (i32.add (local.get $k) (i32.const 1)))
+        (br $kloop)))
+      (i32.store (i32.add (local.get $lab) (i32.shl (local.get $i) (i32.const 2))) (local.get $bk))
+      (f64.store (i32.add (local.get $best) (i32.shl (local.get $i) (i32.const 3))) (local.get $b1))
+      (f64.store (i32.add (local.get $second) (i32.shl (local.get $i) (i32.const 3))) (local.get $b2))
+      (local.set $i (i32.add (local.get $i) (i32.const 1)))
+      (br $iloop))))
+  ;; centreGaps(c, n, k, half): half[a] = sqrt(min over b != a of |c_a - c_b|^2) / 2 (c is n x k, row-major).
+  (func (export "centreGaps") (param $c i32) (param $n i32) (param $k i32) (param $half i32)
+    (local $a i32) (local $b i32) (local $l i32) (local $k2 i32) (local $pa i32) (local $pb i32) (local $acc v128) (local $e v128) (local $s f64) (local $t f64) (local $ha i32) (local $hb i32)
+    (local.set $k2 (i32.and (local.get $k) (i32.const -2)))
+    (local.set $a (i32.const 0))
+    (block $aend0 (loop $aloop0 (br_if $aend0 (i32.ge_s (local.get $a) (local.get $n)))
+      (f64.store (i32.add (local.get $half) (i32.shl (local.get $a) (i32.const 3))) (f64.const inf))
+      (local.set $a (i32.add (local.get $a) (i32.const 1)))
+      (br $aloop0)))
+    (local.set $a (i32.const 0))
+    (block $aend (loop $aloop (br_if $aend (i32.ge_s (local.get $a) (local.get $n)))
+      (local.set $pa (i32.add (local.get $c) (i32.shl (i32.mul (local.get $a) (local.get $k)) (i32.const 3))))
+      (local.set $ha (i32.add (local.get $half) (i32.shl (local.get $a) (i32.const 3))))
+      (local.set $b (i32.add (local.get $a) (i32.const 1)))
+      (block $bend (loop $bloop (br_if $bend (i32.ge_s (local.get $b) (local.get $n)))
+        (local.set $pb (i32.add (local.get $c) (i32.shl (i32.mul (local.get $b) (local.get $k)) (i32.const 3))))
+        ${diffSquared('$pb')}
+        (local.set $t (f64.mul (f64.const 0.5) (f64.sqrt (local.get $s))))
+        (local.set $hb (i32.add (local.get $half) (i32.shl (local.get $b) (i32.const 3))))
+        (if (f64.lt (local.get $t) (f64.load (local.get $ha))) (then (f64.store (local.get $ha) (local.get $t))))
+        (if (f64.lt (local.get $t) (f64.load (local.get $hb))) (then (f64.store (local.get $hb) (local.get $t))))
+        (local.set $b (i32.add (local.get $b) (i32.const 1)))
+        (br $bloop)))
+      (local.set $a (i32.add (local.get $a) (i32.const 1)))
+      (br $aloop))))
 )
 `;
 

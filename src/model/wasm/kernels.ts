@@ -18,6 +18,14 @@ export interface ResidentRows {
   ownDist2(c: Float64Array, n: number, labels: Int32Array, out: Float64Array): Float64Array;
   /** out (count x n) = squared distances of the rows rows[0..count) to the n centres. */
   dist2Rows(rows: Int32Array, count: number, c: Float64Array, c2: Float64Array, n: number, out: Float64Array): Float64Array;
+  /**
+   * Nearest centre of the rows rows[0..count) (all rows when rows is null): label, squared
+   * distance, and squared distance to the second nearest (first on ties, like a scan in order).
+   * The arrays are views into the module's memory, valid until the next kernel call.
+   */
+  assign(rows: Int32Array | null, count: number, c: Float64Array, c2: Float64Array, n: number): { labels: Int32Array; best: Float64Array; second: Float64Array };
+  /** half[a] = min over b != a of |c_a - c_b| / 2 (difference form; c is n x k). */
+  centreGaps(c: Float64Array, n: number, half: Float64Array): Float64Array;
 }
 
 export interface SimdKernels {
@@ -56,6 +64,9 @@ interface Exports {
   ownDist(x: number, m: number, k: number, c: number, labels: number, out: number): void;
   seedUpdate(x: number, m: number, k: number, c: number, mind: number, first: number): number;
   cholesky(a: number, p: number): number;
+  distIdx(a: number, idx: number, m: number, k: number, b: number, n: number, a2: number, b2: number, c: number): void;
+  argmin2(d: number, m: number, n: number, lab: number, best: number, second: number): void;
+  centreGaps(c: number, n: number, k: number, half: number): void;
   cholSolve(l: number, p: number, b: number, h: number): void;
   expNeg(g: number, d: number, m: number, k: number, out: number): void;
 }
@@ -165,6 +176,34 @@ export function loadSimdKernels(): SimdKernels | null {
           out.set(f64.subarray(po / 8, po / 8 + m));
           return out;
         },
+        assign(rows, count, c, c2, n) {
+          const np = n + (n & 1);
+          const pb = base;
+          const pb2 = align16(pb + k * np * 8);
+          const pi = align16(pb2 + np * 8);
+          const pd = align16(pi + count * 4);
+          const pl = align16(pd + count * np * 8);
+          const p1 = align16(pl + count * 4);
+          const p2 = align16(p1 + count * 8);
+          reserve(p2 + count * 8);
+          if (owner !== token) upload();
+          putCentres(c, c2, n, np, k, pb, pb2);
+          if (rows) {
+            new Int32Array(mem.buffer, pi, count).set(rows.subarray(0, count));
+            ex.distIdx(px, pi, count, k, pb, np, px2, pb2, pd);
+          } else ex.dist2(px, count, k, pb, np, px2, pb2, pd);
+          ex.argmin2(pd, count, np, pl, p1, p2);
+          return { labels: new Int32Array(mem.buffer, pl, count), best: new Float64Array(mem.buffer, p1, count), second: new Float64Array(mem.buffer, p2, count) };
+        },
+        centreGaps(c, n, half) {
+          const pc = base;
+          const ph = align16(pc + n * k * 8);
+          reserve(ph + n * 8);
+          f64.set(c.subarray(0, n * k), pc / 8);
+          ex.centreGaps(pc, n, k, ph);
+          half.set(f64.subarray(ph / 8, ph / 8 + n));
+          return half;
+        },
         dist2Rows(rows, count, c, c2, n, out) {
           const np = n + (n & 1);
           const pb = base;
@@ -230,11 +269,12 @@ export function loadSimdKernels(): SimdKernels | null {
           f64.set(src.subarray(r0 * w, r1 * w), o);
           return;
         }
-        // Element loop: a subarray per row costs more than the copy itself for narrow rows.
         for (let i = 0; i < n; i++) {
           const so = (r0 + i) * w;
           const to = o + i * we;
-          for (let j = 0; j < w; j++) f64[to + j] = src[so + j];
+          // A subarray per row costs more than the copy itself for narrow rows.
+          if (w < 24) for (let j = 0; j < w; j++) f64[to + j] = src[so + j];
+          else f64.set(src.subarray(so, so + w), to);
           f64[to + w] = 0;
         }
       };

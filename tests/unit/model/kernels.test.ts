@@ -18,6 +18,17 @@ function randomMatrix(rows: number, cols: number, seed: number): Float64Array {
   return Float64Array.from({ length: rows * cols }, () => z());
 }
 
+/** Rows x (m x k), centres c (n x k), their norms and the scalar kernel's distances. */
+function distanceFixture(m: number, n: number, k: number, seed: number, centreSeed: number) {
+  const x = randomMatrix(m, k, seed);
+  const c = randomMatrix(n, k, seed + centreSeed);
+  const x2 = rowNorms2(x, m, k);
+  const c2 = rowNorms2(c, n, k);
+  const ref = new Float64Array(m * n);
+  dist2Scalar(x, x2, m, k, c, c2, n, ref);
+  return { x, c, x2, c2, ref };
+}
+
 afterEach(() => useKernels('auto'));
 
 describe('SIMD kernels', () => {
@@ -49,12 +60,7 @@ describe('SIMD kernels', () => {
   it('dist2 equals the scalar kernel, and the pad centre of odd counts never leaks', () => {
     fc.assert(
       fc.property(shapes, ({ m, n, k, seed }) => {
-        const x = randomMatrix(m, k, seed);
-        const c = randomMatrix(n, k, seed + 7);
-        const x2 = rowNorms2(x, m, k);
-        const c2 = rowNorms2(c, n, k);
-        const ref = new Float64Array(m * n);
-        dist2Scalar(x, x2, m, k, c, c2, n, ref);
+        const { x, c, x2, c2, ref } = distanceFixture(m, n, k, seed, 7);
         const out = simd!.dist2(x, x2, m, c, c2, n, k, new Float64Array(m * n));
         expect(Array.from(out)).toEqual(Array.from(ref));
         // Resident rows: full pass, subset of rows, own-centre distances, k-means++ step.
@@ -85,6 +91,40 @@ describe('SIMD kernels', () => {
         }
         expect(step.total).toBeGreaterThanOrEqual(step2.total);
         expect(step2.total).toBeCloseTo(total, 8);
+      }),
+      { numRuns: 60 },
+    );
+  });
+
+  it('assign (distances + nearest / second nearest in the module) and centreGaps equal a scan of the scalar distances', () => {
+    fc.assert(
+      fc.property(shapes, fc.boolean(), ({ m, n, k, seed }, subset) => {
+        const { x, c, x2, c2, ref } = distanceFixture(m, n, k, seed, 5);
+        const rows = Int32Array.from({ length: m }, (_, i) => i).filter((i) => !subset || i % 3 !== 1).reverse();
+        const res = simd!.resident(x, x2, m, k);
+        const got = res.assign(subset ? rows : null, subset ? rows.length : m, c, c2, n);
+        const count = subset ? rows.length : m;
+        for (let t = 0; t < count; t++) {
+          const i = subset ? rows[t] : t;
+          const row = Array.from(ref.subarray(i * n, (i + 1) * n));
+          const best = Math.min(...row);
+          expect(got.labels[t]).toBe(row.indexOf(best));
+          expect(got.best[t]).toBe(best);
+          const rest = row.filter((_, j) => j !== row.indexOf(best));
+          expect(got.second[t]).toBe(rest.length ? Math.min(...rest) : Infinity);
+        }
+        const half = res.centreGaps(c, n, new Float64Array(n));
+        for (let a = 0; a < n; a++) {
+          let h = Infinity;
+          for (let b = 0; b < n; b++) {
+            if (b === a) continue;
+            let s2 = 0;
+            for (let j = 0; j < k; j++) s2 += (c[a * k + j] - c[b * k + j]) ** 2;
+            h = Math.min(h, 0.5 * Math.sqrt(s2));
+          }
+          if (h === Infinity) expect(half[a]).toBe(Infinity);
+          else expect(half[a]).toBeCloseTo(h, 12);
+        }
       }),
       { numRuns: 60 },
     );
