@@ -29,6 +29,7 @@ import type { Reading } from '../../src/series/types.ts';
 import { systemClock, type Clock } from '../../src/daemon/clock.ts';
 import { runFitTask } from '../../src/daemon/fit-task.ts';
 import type { Fitter } from '../../src/daemon/ports.ts';
+import { decodeFittedForecaster } from '../../src/forecast/engine.ts';
 
 const HOUR_MS = 3_600_000;
 /** Readings generated before the first cycle: window 8 w + longest lag 1 w + margin, rounded up. */
@@ -261,9 +262,11 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
       });
     }
     // The fitted forecasters are what a series keeps between cycles; they live in the state file.
-    const stored = rt.stateStore.loadModel(series[0].name)?.model as unknown as { scaler?: { featureNames?: string[] } } | undefined;
-    const nFeatures = stored?.scaler?.featureNames?.length;
+    const storedRow = rt.stateStore.loadModelStored(series[0].name)?.stored;
+    const stored = storedRow === undefined ? undefined : decodeFittedForecaster(storedRow, series[0].name);
+    const nFeatures = stored?.scaler.featureNames.length;
     const modelJsonBytes = stored ? JSON.stringify(stored).length : 0;
+    const modelStoredBytes = storedRow === undefined ? 0 : typeof storedRow === 'string' ? Buffer.byteLength(storedRow) : storedRow.length;
     let tableBytes: { name: string; bytes: number }[] = [];
     try {
       rt.stateStore.db.pragma('wal_checkpoint(TRUNCATE)');
@@ -325,7 +328,7 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
           `state file per series by table (B): ${tableBytes
             .filter((t) => t.bytes / n >= 100)
             .map((t) => `${t.name} ${fmt(t.bytes / n)}`)
-            .join(', ')}; one stored forecaster as JSON: ${modelJsonBytes} B`,
+            .join(', ')}; one stored forecaster: ${modelStoredBytes} B as stored (${modelJsonBytes} B as JSON text)`,
         );
       }
       console.log(`load average after: ${os.loadavg().map((l) => l.toFixed(1)).join(' ')}`);

@@ -4,6 +4,7 @@
  *   read     readings of the window + longest lag + margin (and of each exogenous input)
  *   prepare  regularise to the step, find the origin (last observed step), stale check
  *   fit      fitAt, warm-started from the model kept in the state store   } on a worker thread
+ *            (decoded there; the fitted one comes back packed)             }
  *   predict  forecastAt, then bands from the stored residuals per lead    } (pool.ts)
  *   write    forecast batch to the store (no NaN ever written), model + ledger entry to state
  *   score    matured ledger entries vs actuals: residuals per lead, scores to the store
@@ -261,7 +262,8 @@ export class SeriesCycle {
       if (signal?.aborted) throw new StageError('fit', new DaemonError('SHUTDOWN_ABORTED', 'shutdown bound reached before the fit', { series: r.name }));
       // State reads count as preparation: the fit stage is the work inside the worker.
       const capacity = this.#o.residualCapacity ?? DEFAULT_RESIDUAL_CAPACITY;
-      const warm = await timed('prepare', () => state.getModel(r.name));
+      // The stored model goes to the worker as it is stored; it is decoded and checked there.
+      const warmStored = await timed('prepare', () => state.getStoredModel(r.name));
       const phases = s.features.seasonSteps;
       // Residuals depend on the hour a forecast is issued at: the pool keeps each one's origin phase.
       const pool = await timed('prepare', () => state.getResidualPool(r.name, { horizon: H, phases, capacityPerLead: capacity }));
@@ -269,7 +271,7 @@ export class SeriesCycle {
       const wall0 = this.#clock.monotonicMs();
       let fr;
       try {
-        fr = await fitter.fitAndForecast({ settings: s, target, exo, originIndex, warm, holdout: poolEmpty, noveltySteps: r.drift.enabled ? r.drift.settings.novelty.windowSteps : 0 }, signal);
+        fr = await fitter.fitAndForecast({ settings: s, target, exo, originIndex, warmStored, holdout: poolEmpty, noveltySteps: r.drift.enabled ? r.drift.settings.novelty.windowSteps : 0 }, signal);
       } catch (err) {
         throw new StageError('fit', err);
       }
@@ -277,7 +279,8 @@ export class SeriesCycle {
       result.timings.fit += fr.fitMs;
       result.timings.predict += fr.predictMs;
       result.poolOverheadMs = Math.max(0, wall - fr.fitMs - fr.predictMs);
-      result.warmStarted = fr.fitted.warmStarted;
+      result.warmStarted = fr.warmStarted;
+      if (fr.warmRejected) logger.warn({ series: r.name, code: fr.warmRejected.code, err: fr.warmRejected.message }, 'stored model unusable; refitting cold');
       novelty = fr.forecast.novelty;
       recentNovelty = fr.recentNovelty ?? [];
       baselineMase = baselineFromHoldout(fr.holdout, target, originIndex, s.windowSteps, s.features.seasonSteps);
@@ -317,7 +320,7 @@ export class SeriesCycle {
         }
         if (signal?.aborted) throw new DaemonError('SHUTDOWN_ABORTED', 'shutdown bound reached before the write', { series: r.name });
         await this.#writeWithRetry('forecast', () => store.writeForecast(batch));
-        await state.putModel(r.name, fr.fitted, nowMs);
+        await state.putStoredModel(r.name, fr.stored, nowMs);
         await state.recordIssued(r.name, batch);
       });
       result.issuedAt = batch.issuedAt;

@@ -1,14 +1,28 @@
 /**
- * The work of one fit request, the same inline and on a worker thread: fitAt then forecastAt,
- * each timed. Pure computation on the data in the request.
+ * The work of one fit request, the same inline and on a worker thread: decode the stored warm
+ * start, fitAt, forecastAt, pack the fitted forecaster for the state store; each part timed. Pure
+ * computation on the data in the request, so the main thread never parses or serialises a model.
  */
-import { fitAt, forecastAt, type HoldoutResiduals } from '../forecast/engine.ts';
+import { decodeFittedForecaster, encodeFittedForecaster, fitAt, forecastAt, type FittedForecaster, type HoldoutResiduals } from '../forecast/engine.ts';
 import type { FitRequest, FitResult } from './ports.ts';
 
-export function runFitTask(req: FitRequest, now: () => number = () => performance.now()): FitResult {
+/** A fit result that carries the decoded forecaster too (inline fits). */
+export type InlineFitResult = FitResult & { fitted: FittedForecaster };
+
+export function runFitTask(req: FitRequest, now: () => number = () => performance.now()): InlineFitResult {
   const t0 = now();
+  let warm: FittedForecaster | undefined = req.warm ?? undefined;
+  let warmRejected: FitResult['warmRejected'];
+  if (!warm && req.warmStored != null) {
+    try {
+      warm = decodeFittedForecaster(req.warmStored, req.settings.series);
+    } catch (err) {
+      const e = err as { code?: unknown; message?: unknown };
+      warmRejected = { code: typeof e.code === 'string' ? e.code : 'BAD_FITTED', message: typeof e.message === 'string' ? e.message : String(err) };
+    }
+  }
   let holdout: HoldoutResiduals | undefined;
-  const fitted = fitAt(req.target, req.exo, req.settings, req.originIndex, req.warm ?? undefined, {
+  const fitted = fitAt(req.target, req.exo, req.settings, req.originIndex, warm, {
     holdout: req.holdout,
     onHoldout: (h) => {
       holdout = h;
@@ -27,7 +41,10 @@ export function runFitTask(req: FitRequest, now: () => number = () => performanc
     }
   }
   const t2 = now();
-  const out: FitResult = { fitted, forecast, fitMs: t1 - t0, predictMs: t2 - t1 };
+  const stored = encodeFittedForecaster(fitted);
+  const t3 = now();
+  const out: InlineFitResult = { stored, warmStarted: fitted.warmStarted, fitted, forecast, fitMs: t1 - t0 + (t3 - t2), predictMs: t2 - t1 };
+  if (warmRejected) out.warmRejected = warmRejected;
   if (holdout) out.holdout = holdout;
   if (recentNovelty.length) out.recentNovelty = recentNovelty;
   return out;

@@ -3,6 +3,7 @@
 // A module that fails to load fails every task with its error (fast), instead of killing the
 // worker at start-up and leaving queued tasks waiting for a worker that never comes.
 import { register } from 'tsx/esm/api';
+import { Piscina } from 'piscina';
 
 register();
 let runFitTask = null;
@@ -14,13 +15,19 @@ try {
 }
 
 /**
- * One fit request in, { ok: true, result } or { ok: false, error } out (structured clone both
- * ways). Errors travel as plain fields, since a cloned Error loses its code, hint and location.
+ * One fit request in (structured clone), { ok: true, result } or { ok: false, error } out.
+ * The packed forecaster and the forecast values are moved to the main thread (their buffers are
+ * transferred, not copied); the decoded forecaster stays here unless the request asks for it.
+ * Errors travel as plain fields, since a cloned Error loses its code, hint and location.
  */
 export default function fit(req) {
   try {
     if (loadError) throw loadError;
-    return { ok: true, result: runFitTask(req) };
+    const result = runFitTask(req);
+    if (!req.returnFitted) delete result.fitted;
+    const transfer = [result.stored.buffer];
+    if (result.forecast.values.buffer !== result.stored.buffer && result.forecast.values.byteLength === result.forecast.values.buffer.byteLength) transfer.push(result.forecast.values.buffer);
+    return Piscina.move({ [Piscina.transferableSymbol]: transfer, [Piscina.valueSymbol]: { ok: true, result } });
   } catch (err) {
     const e = err && typeof err === 'object' ? err : { message: String(err) };
     let retryable = false;

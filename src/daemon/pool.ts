@@ -2,15 +2,17 @@
  * Fitters: where fitAt + forecastAt run.
  *  - InlineFitter: in the calling thread (tests, `--workers 0`, tiny configs).
  *  - PoolFitter: a piscina pool of worker threads, so heavy fits never block the event loop
- *    (HTTP, schedules and signals stay responsive during a cycle). Requests and results are
- *    structured-cloned; a request is the regular window (a few thousand doubles) plus the previous
- *    model, so the message cost is small next to a fit (measured in bench/cases/daemon-pool.ts).
+ *    (HTTP, schedules and signals stay responsive during a cycle). A request is structured-cloned:
+ *    the regular window (a few thousand doubles) plus the previous model as the state store keeps
+ *    it (packed bytes, decoded in the worker). The result's packed forecaster and forecast values
+ *    are transferred back, not copied; the decoded forecaster stays in the worker unless asked for
+ *    (returnFitted). Message costs: bench/cases/daemon-pool.ts.
  */
 import { availableParallelism } from 'node:os';
 import { Piscina } from 'piscina';
 import { ForecastError } from '../forecast/errors.ts';
 import { describeError } from './errors.ts';
-import { runFitTask } from './fit-task.ts';
+import { runFitTask, type InlineFitResult } from './fit-task.ts';
 import type { FitRequest, FitResult, Fitter } from './ports.ts';
 
 const WORKER_FILE = new URL('./fit-worker.mjs', import.meta.url).href;
@@ -56,7 +58,7 @@ export class InlineFitter implements Fitter {
   get queued(): number {
     return 0;
   }
-  async fitAndForecast(req: FitRequest, signal?: AbortSignal): Promise<FitResult> {
+  async fitAndForecast(req: FitRequest, signal?: AbortSignal): Promise<InlineFitResult> {
     signal?.throwIfAborted();
     // Yield first so a long run of inline fits still lets timers and I/O in between.
     await new Promise((r) => setImmediate(r));

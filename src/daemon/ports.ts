@@ -6,7 +6,7 @@
  */
 import type { DriftState, ForecastBatch } from '../store/types.ts';
 import type { ResolvedSeries } from '../config/resolve.ts';
-import type { FittedForecaster, ForecastOutput, HoldoutResiduals } from '../forecast/engine.ts';
+import type { FittedForecaster, ForecastOutput, HoldoutResiduals, StoredForecaster } from '../forecast/engine.ts';
 import type { ResidualPool } from '../evaluate/bands.ts';
 import type { ForecastSettings } from '../forecast/types.ts';
 import type { RegularSeries } from '../series/types.ts';
@@ -35,8 +35,13 @@ export interface ResidualEntry {
  * an in-memory fake). Series are keyed by their configured name.
  */
 export interface CycleState {
-  getModel(series: string): Promise<FittedForecaster | null>;
-  putModel(series: string, fitted: FittedForecaster, atMs: number): Promise<void>;
+  /**
+   * The warm-start model as stored (packed bytes, or JSON text in older state files), not decoded:
+   * the fit worker decodes and checks it, so the main thread never parses it.
+   */
+  getStoredModel(series: string): Promise<StoredForecaster | null>;
+  /** Keeps the bytes of encodeFittedForecaster as the series' warm-start model. */
+  putStoredModel(series: string, stored: Uint8Array, atMs: number): Promise<void>;
   /**
    * The series' residual pool for the bands (evaluate/bands.ts), empty when there is none yet or
    * when its shape (horizon, phases) no longer matches.
@@ -61,17 +66,32 @@ export interface FitRequest {
   target: RegularSeries;
   exo: Record<string, RegularSeries>;
   originIndex: number;
-  warm: FittedForecaster | null;
+  /** Warm start as a decoded forecaster (tests, benchmarks); wins over warmStored. */
+  warm?: FittedForecaster | null;
+  /**
+   * Warm start as the state store keeps it; decoded and checked where the fit runs. A damaged
+   * one makes the fit cold and comes back as `warmRejected`.
+   */
+  warmStored?: StoredForecaster | null;
   /** Compute hold-out residuals (seed of the bands when none are stored yet). */
   holdout: boolean;
   /** Also the novelty of the inputs at the steps before the origin, this many steps back (drift novelty window). */
   noveltySteps?: number;
+  /** Also return the decoded forecaster from a worker thread (a structured clone; inline fits always return it). */
+  returnFitted?: boolean;
 }
 
 export interface FitResult {
-  fitted: FittedForecaster;
+  /** The fitted forecaster packed for the state store (encodeFittedForecaster; moved, not copied, out of a worker). */
+  stored: Uint8Array;
+  /** Centres and widths came from the warm start. */
+  warmStarted: boolean;
+  /** The stored warm start could not be used (damaged, other format): the fit was cold. */
+  warmRejected?: { code: string; message: string };
+  /** The forecaster itself: inline fits, or when the request asked for it (returnFitted). */
+  fitted?: FittedForecaster;
   forecast: ForecastOutput;
-  /** Time inside the fit (ms). */
+  /** Time inside the fit (ms), decoding the warm start and packing the result included. */
   fitMs: number;
   /** Time of the forecast (ms). */
   predictMs: number;

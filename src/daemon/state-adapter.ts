@@ -1,14 +1,14 @@
 /**
  * The cycle's view (CycleState) of radcast's local state store (src/store/state.ts). Each call is
- * one SQLite transaction; the warm-start model is stored as the whole FittedForecaster (network,
- * scaler, chosen settings) and checked when read back, so a damaged row means a cold refit, not a
- * failed cycle.
+ * one SQLite transaction. The warm-start model is the whole FittedForecaster (network, scaler,
+ * chosen settings), kept packed (encodeFittedForecaster: JSON for the small fields, raw float64
+ * for the arrays) and handed to the fit worker undecoded; the worker checks it, so a damaged row
+ * means a cold refit, not a failed cycle. Rows of older state files (JSON text) decode the same way.
  */
 import type { Logger } from 'pino';
 import type { StateStore } from '../store/state.ts';
 import type { ForecastBatch } from '../store/types.ts';
-import type { RbfModel } from '../model/types.ts';
-import { parseFittedForecaster, type FittedForecaster } from '../forecast/engine.ts';
+import { decodeFittedForecaster, encodeFittedForecaster, type FittedForecaster, type StoredForecaster } from '../forecast/engine.ts';
 import { describeError } from './errors.ts';
 import type { CycleState, IssuedStep } from './ports.ts';
 import { createResidualPool, residualPoolFromRows, type ResidualPool } from '../evaluate/bands.ts';
@@ -28,10 +28,8 @@ const BASELINE_KEY = (s: string) => `drift-baseline:${s}`;
 const POOL_KEY = (s: string) => `residual-pool:${s}`;
 
 /**
- * A residual pool as stored: one kv row per series instead of one SQLite row per residual. The
- * cycle reads the whole pool every time (the bands need all of it), and 24 leads x 336 residuals
- * read row by row cost tens of milliseconds of main-thread time per series; decoding two base64
- * arrays costs well under one. Values are float64 (exact), phases uint16.
+ * A residual pool as stored by earlier versions (JSON text in kv, still read): one kv row per
+ * series instead of one SQLite row per residual, values as base64 float64, phases as base64 uint16.
  */
 export interface EncodedPool {
   v: 1;
@@ -47,6 +45,7 @@ export interface EncodedPool {
   phase: string;
 }
 
+/** The v1 (JSON + base64) form; kept so tests can write state files as earlier versions did. */
 export function encodePool(pool: ResidualPool): EncodedPool {
   const counts = pool.byLead.map((l) => l.length);
   const n = counts.reduce((a, b) => a + b, 0);
@@ -95,6 +94,129 @@ export function decodePool(e: EncodedPool): ResidualPool | null {
   }
 }
 
+/** "RCRP": radcast residual pool, packed. */
+const POOL_MAGIC = 0x50524352;
+const POOL_VERSION = 2;
+/** magic, version, horizon, phases, capacityPerLead (u32 each), dropped (f64), phase coding (u32). */
+const POOL_PREFIX = 32;
+/** Phase coding: one uint16 per residual. */
+const PHASES_PLAIN = 0;
+/** Phase coding: runs of consecutive phases (p, p + 1, ... mod phases) as (u16 first, u32 length). */
+const PHASES_RUNS = 1;
+
+/** Runs of consecutive phases within one lead: [first, length, first, length, ...]. */
+function phaseRuns(list: readonly number[], phases: number): number[] {
+  const runs: number[] = [];
+  for (let i = 0; i < list.length; ) {
+    let j = i + 1;
+    while (j < list.length && list[j] === (list[j - 1] + 1) % phases) j++;
+    runs.push(list[i], j - i);
+    i = j;
+  }
+  return runs;
+}
+
+/**
+ * A residual pool as bytes (a kv BLOB): the shape, the count per lead, the residuals as raw
+ * float64 (exact), then the origin phases. Residuals of one lead come from consecutive hourly
+ * cycles, so their phases are mostly one run (p, p + 1, ...): stored as runs when that is
+ * shorter, else one uint16 each. All numbers little-endian.
+ */
+export function packPool(pool: ResidualPool): Uint8Array {
+  const H = pool.horizon;
+  const counts = pool.byLead.map((l) => l.length);
+  const n = counts.reduce((a, b) => a + b, 0);
+  const runs = pool.phaseByLead.map((l) => phaseRuns(l, pool.phases));
+  const nRuns = runs.reduce((a, r) => a + r.length / 2, 0);
+  const coding = nRuns * 6 + 4 * H < 2 * n ? PHASES_RUNS : PHASES_PLAIN;
+  const valuesAt = POOL_PREFIX + 4 * H;
+  const phasesAt = valuesAt + 8 * n;
+  const size = phasesAt + (coding === PHASES_RUNS ? 4 * H + 6 * nRuns : 2 * n);
+  const out = new Uint8Array(size);
+  const v = new DataView(out.buffer);
+  v.setUint32(0, POOL_MAGIC, true);
+  v.setUint32(4, POOL_VERSION, true);
+  v.setUint32(8, H, true);
+  v.setUint32(12, pool.phases, true);
+  v.setUint32(16, pool.capacityPerLead, true);
+  v.setFloat64(20, pool.dropped, true);
+  v.setUint32(28, coding, true);
+  let at = valuesAt;
+  for (let h = 0; h < H; h++) v.setUint32(POOL_PREFIX + 4 * h, counts[h], true);
+  for (const list of pool.byLead) for (let i = 0; i < list.length; i++, at += 8) v.setFloat64(at, list[i], true);
+  if (coding === PHASES_RUNS) {
+    for (let h = 0; h < H; h++, at += 4) v.setUint32(at, runs[h].length / 2, true);
+    for (const r of runs) {
+      for (let i = 0; i < r.length; i += 2, at += 6) {
+        v.setUint16(at, r[i], true);
+        v.setUint32(at + 2, r[i + 1], true);
+      }
+    }
+  } else {
+    for (const list of pool.phaseByLead) for (let i = 0; i < list.length; i++, at += 2) v.setUint16(at, list[i] ?? 0, true);
+  }
+  return out;
+}
+
+/** null when the bytes are not a readable packed pool. */
+export function unpackPool(b: Uint8Array): ResidualPool | null {
+  if (b.length < POOL_PREFIX) return null;
+  const v = new DataView(b.buffer, b.byteOffset, b.byteLength);
+  if (v.getUint32(0, true) !== POOL_MAGIC || v.getUint32(4, true) !== POOL_VERSION) return null;
+  const H = v.getUint32(8, true);
+  const phases = v.getUint32(12, true);
+  const capacity = v.getUint32(16, true);
+  const coding = v.getUint32(28, true);
+  if (H < 1 || phases < 1 || capacity < 1 || b.length < POOL_PREFIX + 4 * H) return null;
+  const counts: number[] = [];
+  for (let h = 0; h < H; h++) counts.push(v.getUint32(POOL_PREFIX + 4 * h, true));
+  const n = counts.reduce((a, c) => a + c, 0);
+  const valuesAt = POOL_PREFIX + 4 * H;
+  let at = valuesAt + 8 * n;
+  if (at > b.length) return null;
+  const pool = createResidualPool(H, capacity, phases);
+  pool.dropped = v.getFloat64(20, true);
+  let k = valuesAt;
+  for (let h = 0; h < H; h++) {
+    const list = pool.byLead[h];
+    for (let i = 0; i < counts[h]; i++, k += 8) list.push(v.getFloat64(k, true));
+  }
+  if (coding === PHASES_RUNS) {
+    if (at + 4 * H > b.length) return null;
+    const nRuns: number[] = [];
+    for (let h = 0; h < H; h++, at += 4) nRuns.push(v.getUint32(at, true));
+    if (at + 6 * nRuns.reduce((a, c) => a + c, 0) !== b.length) return null;
+    for (let h = 0; h < H; h++) {
+      const list = pool.phaseByLead[h];
+      for (let r = 0; r < nRuns[h]; r++, at += 6) {
+        let p = v.getUint16(at, true);
+        const len = v.getUint32(at + 2, true);
+        if (p >= phases || list.length + len > counts[h]) return null;
+        for (let i = 0; i < len; i++, p = (p + 1) % phases) list.push(p);
+      }
+      if (list.length !== counts[h]) return null;
+    }
+  } else if (coding === PHASES_PLAIN) {
+    if (at + 2 * n !== b.length) return null;
+    for (let h = 0; h < H; h++) {
+      const list = pool.phaseByLead[h];
+      for (let i = 0; i < counts[h]; i++, at += 2) list.push(v.getUint16(at, true));
+    }
+  } else {
+    return null;
+  }
+  return pool;
+}
+
+/** A pool stored as JSON text by an earlier version (v1, base64 arrays). */
+function decodeJsonPool(text: string): ResidualPool | null {
+  try {
+    return decodePool(JSON.parse(text) as EncodedPool);
+  } catch {
+    return null;
+  }
+}
+
 export class StateAdapter implements CycleState {
   readonly store: StateStore;
   readonly #logger: Logger;
@@ -107,11 +229,20 @@ export class StateAdapter implements CycleState {
     this.#stepOf = opts.stepOf;
   }
 
+  async getStoredModel(series: string): Promise<StoredForecaster | null> {
+    return this.store.loadModelStored(series)?.stored ?? null;
+  }
+
+  async putStoredModel(series: string, stored: Uint8Array, atMs: number): Promise<void> {
+    this.store.saveModel(series, stored, atMs);
+  }
+
+  /** The stored model decoded and checked here (tools, tests); null with a warning when it is damaged. */
   async getModel(series: string): Promise<FittedForecaster | null> {
-    const row = this.store.loadModel(series);
-    if (!row) return null;
+    const stored = await this.getStoredModel(series);
+    if (stored === null) return null;
     try {
-      return parseFittedForecaster(row.model, series);
+      return decodeFittedForecaster(stored, series);
     } catch (err) {
       const e = describeError(err);
       this.#logger.warn({ series, code: e.code, err: e.message }, 'stored model unusable; refitting cold');
@@ -120,14 +251,13 @@ export class StateAdapter implements CycleState {
   }
 
   async putModel(series: string, fitted: FittedForecaster, atMs: number): Promise<void> {
-    // The state store keeps any JSON-able model; the daemon's is the whole forecaster.
-    this.store.saveModel(series, fitted as unknown as RbfModel, atMs);
+    await this.putStoredModel(series, encodeFittedForecaster(fitted), atMs);
   }
 
   async getResidualPool(series: string, shape: { horizon: number; phases: number; capacityPerLead: number }): Promise<ResidualPool> {
-    const stored = this.store.getJson<EncodedPool>(POOL_KEY(series));
-    if (stored) {
-      const pool = decodePool(stored);
+    const stored = this.store.getStored(POOL_KEY(series));
+    if (stored !== undefined) {
+      const pool = typeof stored === 'string' ? decodeJsonPool(stored) : unpackPool(stored);
       if (pool && pool.horizon === shape.horizon && pool.phases === shape.phases) {
         pool.capacityPerLead = shape.capacityPerLead;
         for (let i = 0; i < pool.byLead.length; i++) {
@@ -151,7 +281,7 @@ export class StateAdapter implements CycleState {
   }
 
   async putResidualPool(series: string, pool: ResidualPool): Promise<void> {
-    this.store.setJson(POOL_KEY(series), encodePool(pool), Date.now());
+    this.store.setBytes(POOL_KEY(series), packPool(pool), Date.now());
   }
 
   async recordIssued(series: string, batch: ForecastBatch): Promise<void> {

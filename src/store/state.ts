@@ -1,14 +1,16 @@
 /**
  * radcast's own state, always a local SQLite file (it may be the embedded store's file; the
  * table names do not overlap):
- *   models           series -> model JSON (warm start), fitted_at
+ *   models           series -> model (warm start): JSON text, or packed bytes (a BLOB; the
+ *                    daemon's forecaster, see encodeFittedForecaster), fitted_at
  *   ledger           (series, issued_at, lead) -> target t, value, bands: forecasts issued and
  *                    not yet scored; scoring takes the matured ones and removes them
  *   residuals        (series, lead, t) -> actual - forecast, for the quantile bands
  *   drift_state      series -> detector state JSON
  *   outbox           pending webhook notifications, kept until delivered
  *   cycles           series -> last attempt / success / error code; '*' = whole cycle
- *   kv               small JSON values for other components (backtest baselines, ...)
+ *   kv               small JSON values for other components (backtest baselines, ...), or
+ *                    bytes (BLOB; the daemon's residual pools)
  * The InfluxDB adapter's write spool (table write_spool, src/store/spool.ts) lives in the same file
  * under its own schema component and connection.
  * All methods are synchronous (better-sqlite3) and each one is a single transaction of prepared
@@ -135,7 +137,7 @@ export class StateStore {
     const db = this.#db;
     return {
       putModel: db.prepare('INSERT INTO models (series, model, fitted_at) VALUES (?, ?, ?) ON CONFLICT (series) DO UPDATE SET model = excluded.model, fitted_at = excluded.fitted_at'),
-      getModel: db.prepare<[string], { model: string; fitted_at: number }>('SELECT model, fitted_at FROM models WHERE series = ?'),
+      getModel: db.prepare<[string], { model: string | Buffer; fitted_at: number }>('SELECT model, fitted_at FROM models WHERE series = ?'),
       delModel: db.prepare('DELETE FROM models WHERE series = ?'),
       putLedger: db.prepare(
         'INSERT INTO ledger (series, issued_at, lead, t, value, bands) VALUES (?, ?, ?, ?, ?, ?) ON CONFLICT (series, issued_at, lead) DO UPDATE SET t = excluded.t, value = excluded.value, bands = excluded.bands',
@@ -178,7 +180,7 @@ export class StateStore {
         'SELECT series, last_attempt_at, last_success_at, last_error_code FROM cycles WHERE series = ?',
       ),
       putKv: db.prepare('INSERT INTO kv (key, value, updated_at) VALUES (?, ?, ?) ON CONFLICT (key) DO UPDATE SET value = excluded.value, updated_at = excluded.updated_at'),
-      getKv: db.prepare<[string], { value: string }>('SELECT value FROM kv WHERE key = ?'),
+      getKv: db.prepare<[string], { value: string | Buffer }>('SELECT value FROM kv WHERE key = ?'),
       delKv: db.prepare('DELETE FROM kv WHERE key = ?'),
     };
   }
@@ -208,22 +210,46 @@ export class StateStore {
   }
 
   // ---- models (warm start) ----
-  /** Any JSON-able model (the daemon stores its whole fitted forecaster). */
-  saveModel(series: string, model: RbfModel | object, fittedAt: number): void {
-    const json = JSON.stringify(model);
-    this.#tx(() => this.#s.putModel.run(series, json, fittedAt));
+  /**
+   * Any JSON-able model, kept as JSON text; or bytes (a Uint8Array, e.g. the daemon's packed
+   * forecaster), kept as they are in a BLOB. The column's declared type is TEXT (older files);
+   * SQLite keeps BLOBs as BLOBs in it.
+   */
+  saveModel(series: string, model: RbfModel | object | Uint8Array, fittedAt: number): void {
+    const value = storedValue(model);
+    this.#tx(() => this.#s.putModel.run(series, value, fittedAt));
   }
   /** Many models in one commit. */
-  saveModels(rows: { series: string; model: RbfModel | object; fittedAt: number }[]): void {
-    const encoded = rows.map((r) => [r.series, JSON.stringify(r.model), r.fittedAt] as const);
+  saveModels(rows: { series: string; model: RbfModel | object | Uint8Array; fittedAt: number }[]): void {
+    const encoded = rows.map((r) => [r.series, storedValue(r.model), r.fittedAt] as const);
     this.#tx(() => {
       for (const r of encoded) this.#s.putModel.run(...r);
     });
   }
-  loadModel<M = RbfModel>(series: string): { model: M; fittedAt: number } | null {
+  /**
+   * The model as stored: JSON text, or the bytes given to saveModel. No parsing (the daemon
+   * hands the stored form to the fit worker, which decodes it there).
+   */
+  loadModelStored(series: string): { stored: string | Uint8Array; fittedAt: number } | null {
     this.#open();
     const r = this.#s.getModel.get(series);
-    return r ? { model: JSON.parse(r.model) as M, fittedAt: r.fitted_at } : null;
+    return r ? { stored: r.model, fittedAt: r.fitted_at } : null;
+  }
+  /**
+   * The model parsed: JSON text with JSON.parse; a model stored as bytes with `decodeBytes`
+   * (e.g. decodeFittedForecaster). Bytes without a decoder throw STORE_PROTOCOL.
+   */
+  loadModel<M = RbfModel>(series: string, decodeBytes?: (bytes: Uint8Array) => M): { model: M; fittedAt: number } | null {
+    const r = this.loadModelStored(series);
+    if (!r) return null;
+    if (typeof r.stored === 'string') return { model: JSON.parse(r.stored) as M, fittedAt: r.fittedAt };
+    if (!decodeBytes) {
+      throw new StoreError('STORE_PROTOCOL', `the model of ${series} in ${this.path} is stored as ${r.stored.length} bytes, not JSON`, {
+        series,
+        hint: 'read it with loadModel(series, decodeFittedForecaster) or loadModelStored',
+      });
+    }
+    return { model: decodeBytes(r.stored), fittedAt: r.fittedAt };
   }
   deleteModel(series: string): void {
     this.#tx(() => this.#s.delModel.run(series));
@@ -240,7 +266,7 @@ export class StateStore {
         for (const p of b.points) this.#s.putLedger.run(b.series, b.issuedAt, p.lead, p.t, p.value, JSON.stringify(p.bands));
         const key = `latest:${b.series}`;
         const prev = this.#s.getKv.get(key);
-        if (!prev || (JSON.parse(prev.value) as ForecastBatch).issuedAt <= b.issuedAt) this.#s.putKv.run(key, JSON.stringify(b), b.issuedAt);
+        if (!prev || typeof prev.value !== 'string' || (JSON.parse(prev.value) as ForecastBatch).issuedAt <= b.issuedAt) this.#s.putKv.run(key, JSON.stringify(b), b.issuedAt);
       }
     });
   }
@@ -361,7 +387,7 @@ export class StateStore {
     return this.cycle(ALL_SERIES)?.lastSuccessAt ?? null;
   }
 
-  // ---- small JSON values ----
+  // ---- small JSON values (and bytes) ----
   setJson(key: string, value: unknown, nowMs: number): void {
     const json = JSON.stringify(value);
     this.#tx(() => this.#s.putKv.run(key, json, nowMs));
@@ -369,7 +395,21 @@ export class StateStore {
   getJson<T = unknown>(key: string): T | undefined {
     this.#open();
     const r = this.#s.getKv.get(key);
-    return r ? (JSON.parse(r.value) as T) : undefined;
+    if (!r) return undefined;
+    if (typeof r.value !== 'string') {
+      throw new StoreError('STORE_PROTOCOL', `kv value ${key} in ${this.path} is ${r.value.length} bytes, not JSON`, { at: key, hint: 'read it with getStored' });
+    }
+    return JSON.parse(r.value) as T;
+  }
+  /** Bytes under a key (a BLOB in kv, read back with getStored). */
+  setBytes(key: string, bytes: Uint8Array, nowMs: number): void {
+    const value = blob(bytes);
+    this.#tx(() => this.#s.putKv.run(key, value, nowMs));
+  }
+  /** A kv value as stored: JSON text (setJson) or bytes (setBytes); undefined when absent. */
+  getStored(key: string): string | Uint8Array | undefined {
+    this.#open();
+    return this.#s.getKv.get(key)?.value;
   }
   deleteJson(key: string): void {
     this.#tx(() => this.#s.delKv.run(key));
@@ -390,6 +430,15 @@ export class StateStore {
   get db(): Db {
     return this.#open();
   }
+}
+
+/** A Uint8Array as better-sqlite3 binds a BLOB (a Buffer over the same memory, no copy). */
+function blob(b: Uint8Array): Buffer {
+  return Buffer.isBuffer(b) ? b : Buffer.from(b.buffer, b.byteOffset, b.byteLength);
+}
+
+function storedValue(model: object | Uint8Array): string | Buffer {
+  return model instanceof Uint8Array ? blob(model) : JSON.stringify(model);
 }
 
 interface OutboxRow {

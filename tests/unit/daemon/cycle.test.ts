@@ -60,7 +60,7 @@ describe('series cycle', () => {
     for (const st of ['read', 'prepare', 'fit', 'predict', 'write', 'score'] as const) expect(r.timings[st]).toBeGreaterThan(0);
     expect(r.timings.drift).toBe(0); // no assessor wired: stage skipped
     expect(store.health).toHaveLength(0);
-    expect(state.models.get('oskaveld-north')?.series).toBe('oskaveld-north');
+    expect(state.model('oskaveld-north')?.series).toBe('oskaveld-north');
     expect(state.pending('oskaveld-north')).toHaveLength(24);
     expect(r.warmStarted).toBe(false);
   });
@@ -104,6 +104,27 @@ describe('series cycle', () => {
       expect(l.length).toBe(Math.min(336, poolBefore[h] + 1));
       expect(l[l.length - 1]).toBeCloseTo(errs[h], 9);
     }
+  });
+
+  it('a damaged stored model means a cold refit with a warning naming the series; a JSON one (older state file) warm-starts', async () => {
+    const { store, state, cycle, cap } = setup();
+    const [s] = resolved([{ name: 'tarrow-hill' }]);
+    store.readings.set('tarrow-hill', syntheticLoad({ fromMs: END - days(40), toMs: END, seed: 5 }));
+    state.models.set('tarrow-hill', Uint8Array.from([0x52, 0x43, 0x46, 0x50, 1, 0, 0, 0, 9, 9]));
+    const r = await cycle.run(s, { nowMs: NOW });
+    expect(r.outcome).toBe('ok');
+    expect(r.warmStarted).toBe(false);
+    expect(cap.problems()).toEqual([expect.objectContaining({ series: 'tarrow-hill', code: 'BAD_FITTED', msg: expect.stringMatching(/refitting cold/) })]);
+    // The cold fit replaced it with a good packed model.
+    const fitted = state.model('tarrow-hill')!;
+    expect(fitted.warmStarted).toBe(false);
+    // The same forecaster as JSON text, as state files kept it before models were packed.
+    state.models.set('tarrow-hill', JSON.stringify(fitted));
+    const again = await cycle.run(s, { nowMs: NOW + HOUR });
+    expect(again.outcome).toBe('ok');
+    expect(again.warmStarted).toBe(true);
+    expect(cap.problems()).toHaveLength(1);
+    expect(state.models.get('tarrow-hill')).toBeInstanceOf(Uint8Array);
   });
 
   it('never writes a NaN forecast: a non-finite value is rejected with its code and counted', async () => {

@@ -3,7 +3,7 @@ import type { ForecastBatch, HealthPoint, ScorePoint, SeriesStore, SourceSelecto
 import type { Reading } from '../../../src/series/types.ts';
 import type { CycleState, IssuedStep } from '../../../src/daemon/ports.ts';
 import { createResidualPool, type ResidualPool } from '../../../src/evaluate/bands.ts';
-import type { FittedForecaster } from '../../../src/forecast/engine.ts';
+import { decodeFittedForecaster, type FittedForecaster, type StoredForecaster } from '../../../src/forecast/engine.ts';
 import { parseConfigObject } from '../../../src/config/load.ts';
 import type { ResolvedSeries } from '../../../src/config/resolve.ts';
 import { mulberry32 } from '../../../src/model/index.ts';
@@ -56,17 +56,24 @@ export class MemoryStore implements SeriesStore {
 }
 
 export class MemoryState implements CycleState {
-  models = new Map<string, FittedForecaster>();
+  /** Warm-start models as stored (packed bytes, or JSON text to play an older state file). */
+  models = new Map<string, StoredForecaster>();
   pools = new Map<string, ResidualPool>();
   ledger = new Map<string, Map<string, IssuedStep>>();
   latest = new Map<string, ForecastBatch>();
   drift = new Map<string, unknown>();
 
-  async getModel(series: string) {
-    return structuredClone(this.models.get(series) ?? null);
+  async getStoredModel(series: string) {
+    const m = this.models.get(series);
+    return m === undefined ? null : typeof m === 'string' ? m : m.slice();
   }
-  async putModel(series: string, fitted: FittedForecaster) {
-    this.models.set(series, structuredClone(fitted));
+  async putStoredModel(series: string, stored: Uint8Array) {
+    this.models.set(series, stored.slice());
+  }
+  /** The stored model decoded (for assertions). */
+  model(series: string): FittedForecaster | undefined {
+    const m = this.models.get(series);
+    return m === undefined ? undefined : decodeFittedForecaster(m, series);
   }
   async getResidualPool(series: string, shape: { horizon: number; phases: number; capacityPerLead: number }): Promise<ResidualPool> {
     const p = this.pools.get(series);

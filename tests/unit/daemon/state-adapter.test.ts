@@ -4,9 +4,15 @@ import os from 'node:os';
 import path from 'node:path';
 import fc from 'fast-check';
 import { StateStore } from '../../../src/store/state.ts';
-import { StateAdapter, decodePool, encodePool } from '../../../src/daemon/state-adapter.ts';
+import { StateAdapter, decodePool, encodePool, packPool, unpackPool } from '../../../src/daemon/state-adapter.ts';
 import { addResiduals, createResidualPool, originPhase } from '../../../src/evaluate/bands.ts';
 import { captureLogger } from './helpers.ts';
+import { resolved, syntheticLoad } from './fakes.ts';
+import { fitAt, forecastAt } from '../../../src/forecast/engine.ts';
+import { lastValueIndex, regularize } from '../../../src/series/index.ts';
+
+const END = Date.UTC(2026, 10, 30);
+const [S] = resolved([{ name: 'oskaveld-north' }]);
 
 const HOUR = 3600_000;
 let dir = '';
@@ -37,6 +43,72 @@ describe('residual pool storage', () => {
     );
   });
 
+  it('pack/unpack is exact for any residuals and phases, runs of consecutive phases or not (property)', () => {
+    fc.assert(
+      fc.property(
+        fc.integer({ min: 1, max: 6 }),
+        fc.integer({ min: 1, max: 300 }),
+        fc.array(fc.tuple(fc.integer({ min: 1, max: 6 }), fc.double({ noNaN: true, noDefaultInfinity: true }), fc.nat(299), fc.integer({ min: 1, max: 40 })), { maxLength: 60 }),
+        fc.nat(1000),
+        (H, phases, entries, dropped) => {
+          const pool = createResidualPool(H, 50, phases);
+          // Each entry is a run of forecasts issued at consecutive steps (phase, phase + 1, ...).
+          for (const [lead, v, ph, len] of entries) {
+            for (let i = 0; i < len; i++) if (lead <= H) addResiduals(pool, lead, [v + i], (ph + i) % phases);
+          }
+          pool.dropped += dropped;
+          const back = unpackPool(packPool(pool));
+          expect(back).toEqual(pool);
+          back!.byLead.forEach((l, h) => l.forEach((v, i) => expect(Object.is(v, pool.byLead[h][i])).toBe(true)));
+        },
+      ),
+      { numRuns: 150 },
+    );
+  });
+
+  it('a full pool of hourly residuals packs to 8 bytes per residual plus a little', () => {
+    const H = 24;
+    const pool = createResidualPool(H, 336, 24);
+    for (let o = 0; o < 400; o++) for (let lead = 1; lead <= H; lead++) addResiduals(pool, lead, [Math.sin(o * lead)], originPhase(o * HOUR, HOUR, 24));
+    const bytes = packPool(pool);
+    expect(bytes.length).toBeLessThan(24 * 336 * 8 + 1024);
+    expect(unpackPool(bytes)).toEqual(pool);
+  });
+
+  it('damaged packed pools are refused (null), never half read', () => {
+    const pool = createResidualPool(3, 10, 24);
+    for (let i = 0; i < 12; i++) addResiduals(pool, 1 + (i % 3), [i * 0.5], i % 24);
+    const bytes = packPool(pool);
+    expect(unpackPool(bytes.subarray(0, bytes.length - 1))).toBeNull();
+    expect(unpackPool(new Uint8Array(8))).toBeNull();
+    const badMagic = bytes.slice();
+    badMagic[0] ^= 0xff;
+    expect(unpackPool(badMagic)).toBeNull();
+    const badCount = bytes.slice();
+    new DataView(badCount.buffer).setUint32(32, 999, true);
+    expect(unpackPool(badCount)).toBeNull();
+  });
+
+  it('the adapter writes the pool as a BLOB and still reads the JSON pools of older state files', async () => {
+    const { logger, problems } = captureLogger();
+    const a = new StateAdapter(store, logger);
+    const pool = createResidualPool(2, 10, 24);
+    addResiduals(pool, 1, [1.5, -0.25], 7);
+    addResiduals(pool, 2, [3], 8);
+    store.setJson('residual-pool:old', encodePool(pool), 0); // as written before pools were packed
+    expect(await a.getResidualPool('old', { horizon: 2, phases: 24, capacityPerLead: 10 })).toEqual(pool);
+    await a.putResidualPool('new', pool);
+    const kind = store.db.prepare("SELECT typeof(value) AS kind FROM kv WHERE key = 'residual-pool:new'").get() as { kind: string };
+    expect(kind.kind).toBe('blob');
+    expect(await a.getResidualPool('new', { horizon: 2, phases: 24, capacityPerLead: 10 })).toEqual(pool);
+    // A smaller capacity keeps the newest residuals.
+    const cut = await a.getResidualPool('new', { horizon: 2, phases: 24, capacityPerLead: 1 });
+    expect(cut.byLead).toEqual([[-0.25], [3]]);
+    store.setBytes('residual-pool:bad', Uint8Array.from([1, 2, 3]), 0);
+    expect((await a.getResidualPool('bad', { horizon: 2, phases: 24, capacityPerLead: 10 })).byLead).toEqual([[], []]);
+    expect(problems().filter((l) => l.code === 'STATE_POOL_UNREADABLE')).toHaveLength(1);
+  });
+
   it('a damaged stored pool reads as empty (with a warning), not as an error', async () => {
     const { logger, lines } = captureLogger();
     const a = new StateAdapter(store, logger);
@@ -65,5 +137,37 @@ describe('residual pool storage', () => {
     expect(again).toEqual(pool);
     // A changed horizon does not line up with old residuals: empty.
     expect((await a.getResidualPool('s', { horizon: 3, phases: 24, capacityPerLead: 10 })).byLead).toEqual([[], [], []]);
+  });
+});
+
+describe('warm-start model storage', () => {
+  const fitted = () => {
+    const target = regularize(syntheticLoad({ fromMs: END - 40 * 24 * HOUR, toMs: END }), { ...S.settings.regularize, stepMs: HOUR, startMs: END - 30 * 24 * HOUR, endMs: END, series: S.name });
+    return { target, f: fitAt(target, {}, S.settings, lastValueIndex(target)) };
+  };
+
+  it('stores the packed forecaster as it came from the fit, and reads older JSON rows', async () => {
+    const { logger, problems } = captureLogger();
+    const a = new StateAdapter(store, logger);
+    const { target, f } = fitted();
+    await a.putModel(S.name, f, 1);
+    const stored = await a.getStoredModel(S.name);
+    expect(stored).toBeInstanceOf(Uint8Array);
+    const back = (await a.getModel(S.name))!;
+    const o = lastValueIndex(target);
+    expect(Buffer.from(forecastAt(back, target, {}, S.settings, o).values.buffer).equals(Buffer.from(forecastAt(f, target, {}, S.settings, o).values.buffer))).toBe(true);
+    // A state file written before models were packed holds the forecaster as JSON text.
+    store.saveModel('old', f, 1);
+    expect(typeof (await a.getStoredModel('old'))).toBe('string');
+    expect(await a.getModel('old')).toEqual(f);
+    expect(problems()).toHaveLength(0);
+  });
+
+  it('a damaged stored model reads as none, with a warning naming the series', async () => {
+    const { logger, problems } = captureLogger();
+    const a = new StateAdapter(store, logger);
+    store.saveModel('tarrow-hill', Uint8Array.from([0x52, 0x43, 0x46, 0x50, 1, 0, 0, 0]), 1);
+    expect(await a.getModel('tarrow-hill')).toBeNull();
+    expect(problems()).toEqual([expect.objectContaining({ series: 'tarrow-hill', code: 'BAD_FITTED' })]);
   });
 });

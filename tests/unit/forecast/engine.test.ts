@@ -1,6 +1,6 @@
 import { describe, expect, it } from 'vitest';
 import fc from 'fast-check';
-import { fitAt, forecastAt, parseFittedForecaster, settingsKey, AUTO_CANDIDATES, type HoldoutResiduals } from '../../../src/forecast/engine.ts';
+import { fitAt, forecastAt, parseFittedForecaster, settingsKey, AUTO_CANDIDATES, decodeFittedForecaster, encodeFittedForecaster, isPackedForecaster, type FittedForecaster, type HoldoutResiduals } from '../../../src/forecast/engine.ts';
 import type { RegularSeries } from '../../../src/series/types.ts';
 import { HOUR, hourlySettings, syntheticHourly } from './fixtures.ts';
 
@@ -103,5 +103,94 @@ describe('fitAt / forecastAt', () => {
     gap[origin] = Number.NaN;
     expect(() => forecastAt(f, withValues(series, gap), {}, settings, origin)).toThrow(/MISSING_INPUT/);
     expect(() => fitAt(series, {}, settings, 30)).toThrow(/TOO_LITTLE_HISTORY/);
+  });
+});
+
+describe('packed forecaster (state store form)', () => {
+  const series = syntheticHourly(24 * 30, 1, 1);
+  const settings = small();
+  const origin = 24 * 20 + 5;
+  const f = fitAt(series, {}, settings, origin);
+  const bytesOf = (a: Float64Array) => Buffer.from(a.buffer, a.byteOffset, a.byteLength);
+  /** Every number of both forecasters is the same double (Object.is: -0 and 0 differ). */
+  const sameNumbers = (a: number[], b: number[]) => a.length === b.length && a.every((v, i) => Object.is(v, b[i]));
+
+  it('decodes to exactly the same forecaster, and its predictions are bit-for-bit equal', () => {
+    const packed = encodeFittedForecaster(f);
+    expect(isPackedForecaster(packed)).toBe(true);
+    const back = decodeFittedForecaster(packed, settings.series);
+    expect(back).toEqual(f);
+    for (const k of ['centres', 'gammas', 'weights'] as const) expect(sameNumbers(back.model[k], f.model[k])).toBe(true);
+    expect(sameNumbers(back.scaler.mean, f.scaler.mean) && sameNumbers(back.scaler.scale, f.scaler.scale)).toBe(true);
+    for (const o of [origin, origin + 3, origin + 30]) {
+      expect(bytesOf(forecastAt(back, series, {}, settings, o).values).equals(bytesOf(forecastAt(f, series, {}, settings, o).values))).toBe(true);
+    }
+    // A warm refit from the decoded forecaster is the refit from the original.
+    const w1 = fitAt(series, {}, settings, origin + 24, f);
+    const w2 = fitAt(series, {}, settings, origin + 24, back);
+    expect(w2.warmStarted).toBe(true);
+    expect({ ...w2, fitMs: 0 }).toEqual({ ...w1, fitMs: 0 });
+    // About half of the JSON text: ~3.5k doubles are 8 bytes each instead of ~19 characters.
+    expect(packed.length).toBeLessThan(0.6 * JSON.stringify(f).length);
+    // The bytes own their buffer (they are moved between threads).
+    expect(packed.byteOffset).toBe(0);
+    expect(packed.buffer.byteLength).toBe(packed.length);
+  });
+
+  it('keeps doubles JSON text cannot: -0, subnormals, the largest finite double', () => {
+    const centres = f.model.centres.slice();
+    centres[0] = -0;
+    centres[1] = 5e-324; // smallest subnormal
+    centres[2] = Number.MAX_VALUE;
+    centres[3] = 0.1 + 0.2;
+    const g: FittedForecaster = { ...f, model: { ...f.model, centres } };
+    const back = decodeFittedForecaster(encodeFittedForecaster(g));
+    expect(sameNumbers(back.model.centres, centres)).toBe(true);
+  });
+
+  it('writes the arrays as IEEE 754 binary64, little-endian', () => {
+    // IEEE 754-2008, binary64: 1.0 = 0x3FF0000000000000, -2.0 = 0xC000000000000000,
+    // 0.1 = 0x3FB999999999999A (the nearest double to 0.1); little-endian = least significant byte first.
+    const scale = f.scaler.scale.slice();
+    const n = scale.length;
+    scale[n - 3] = 1;
+    scale[n - 2] = 0.1;
+    scale[n - 1] = 2; // positive: scales must be > 0
+    const packed = encodeFittedForecaster({ ...f, scaler: { ...f.scaler, scale } });
+    const tail = Buffer.from(packed.subarray(packed.length - 24)).toString('hex');
+    expect(tail).toBe('000000000000f03f' + '9a9999999999b93f' + '0000000000000040');
+    const mean = f.scaler.mean.slice();
+    mean[n - 1] = -2;
+    const p2 = encodeFittedForecaster({ ...f, scaler: { ...f.scaler, mean } });
+    // mean comes just before scale in the packed arrays
+    expect(Buffer.from(p2.subarray(p2.length - 8 * n - 8, p2.length - 8 * n)).toString('hex')).toBe('00000000000000c0');
+  });
+
+  it('a damaged stored forecaster is a BAD_FITTED error naming the series, whatever the damage', () => {
+    const packed = encodeFittedForecaster(f);
+    const damaged: Array<[string, Uint8Array]> = [
+      ['truncated', packed.subarray(0, packed.length - 8)],
+      ['empty', new Uint8Array(0)],
+      ['not packed', new TextEncoder().encode('{"version":1}')],
+      ['bad magic', Uint8Array.from(packed, (b, i) => (i === 0 ? b ^ 1 : b))],
+      ['bad header', Uint8Array.from(packed, (b, i) => (i === 17 ? 0x7b : b))],
+    ];
+    // The float64 values start after the 16-byte prefix and the header, padded to 8 bytes.
+    const headerEnd = 16 + new DataView(packed.buffer).getUint32(8, true);
+    const valuesAt = headerEnd + ((8 - (headerEnd % 8)) % 8);
+    const nan = packed.slice();
+    nan.fill(0xff, valuesAt + 8, valuesAt + 16); // the second centre coordinate becomes a NaN
+    damaged.push(['NaN centre', nan]);
+    for (const [what, b] of damaged) {
+      let err: unknown;
+      try {
+        decodeFittedForecaster(b, 'tarrow-hill');
+      } catch (e) {
+        err = e;
+      }
+      expect(err, what).toMatchObject({ code: 'BAD_FITTED', series: 'tarrow-hill' });
+    }
+    // The JSON text of older state files still decodes.
+    expect(decodeFittedForecaster(JSON.stringify(f), settings.series)).toEqual(f);
   });
 });

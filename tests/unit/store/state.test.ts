@@ -38,6 +38,37 @@ describe('state store', () => {
     expect(state.loadModel('b')?.fittedAt).toBe(2000);
   });
 
+  it('models given as bytes are kept as a BLOB, returned as stored, and need a decoder to parse', () => {
+    const bytes = Uint8Array.from([0x52, 0x43, 0x46, 0x50, 0, 1, 2, 254, 255]);
+    state.saveModel('p', bytes, 3000);
+    const row = state.db.prepare("SELECT typeof(model) AS kind, length(model) AS n FROM models WHERE series = 'p'").get() as { kind: string; n: number };
+    expect(row).toEqual({ kind: 'blob', n: bytes.length });
+    const back = state.loadModelStored('p');
+    expect(back?.fittedAt).toBe(3000);
+    expect(back?.stored).toBeInstanceOf(Uint8Array);
+    expect(Array.from(back!.stored as Uint8Array)).toEqual(Array.from(bytes));
+    expect(() => state.loadModel('p')).toThrow(expect.objectContaining({ code: 'STORE_PROTOCOL', series: 'p' }));
+    expect(state.loadModel('p', (b) => b.length)?.model).toBe(bytes.length);
+    // A view into a larger buffer stores only its own bytes.
+    const big = new Uint8Array(32).map((_, i) => i);
+    state.saveModels([{ series: 'q', model: big.subarray(4, 8), fittedAt: 1 }]);
+    expect(Array.from(state.loadModelStored('q')!.stored as Uint8Array)).toEqual([4, 5, 6, 7]);
+    // JSON models (older files, other callers) are text, as before.
+    state.saveModel('p', model, 4000);
+    expect(typeof state.loadModelStored('p')?.stored).toBe('string');
+    expect(state.loadModel('p')).toEqual({ model, fittedAt: 4000 });
+  });
+
+  it('kv holds bytes beside JSON values; reading bytes as JSON is a coded error', () => {
+    state.setBytes('b', Uint8Array.from([1, 2, 3]), 5);
+    state.setJson('j', { a: 1 }, 5);
+    expect(Array.from(state.getStored('b') as Uint8Array)).toEqual([1, 2, 3]);
+    expect(state.getStored('j')).toBe('{"a":1}');
+    expect(state.getStored('none')).toBeUndefined();
+    expect(() => state.getJson('b')).toThrow(expect.objectContaining({ code: 'STORE_PROTOCOL', at: 'b' }));
+    expect(state.getJson('j')).toEqual({ a: 1 });
+  });
+
   it('the issued-forecast ledger yields matured steps once, idempotently', () => {
     state.recordIssued([batch('a', 0), batch('a', H)]);
     state.recordIssued([batch('a', 0)]); // again: no duplicates
