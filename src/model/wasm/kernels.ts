@@ -66,6 +66,7 @@ interface Exports {
   cholesky(a: number, p: number): number;
   distIdx(a: number, idx: number, m: number, k: number, b: number, n: number, a2: number, b2: number, c: number): void;
   argmin2(d: number, m: number, n: number, lab: number, best: number, second: number): void;
+  assign(a: number, idx: number, useIdx: number, m: number, k: number, b: number, n: number, a2: number, b2: number, dbuf: number, lab: number, best: number, second: number): void;
   centreGaps(c: number, n: number, k: number, half: number): void;
   cholSolve(l: number, p: number, b: number, h: number): void;
   expNeg(g: number, d: number, m: number, k: number, out: number): void;
@@ -182,17 +183,14 @@ export function loadSimdKernels(): SimdKernels | null {
           const pb2 = align16(pb + k * np * 8);
           const pi = align16(pb2 + np * 8);
           const pd = align16(pi + count * 4);
-          const pl = align16(pd + count * np * 8);
+          const pl = align16(pd + 32 * np * 8);
           const p1 = align16(pl + count * 4);
           const p2 = align16(p1 + count * 8);
           reserve(p2 + count * 8);
           if (owner !== token) upload();
           putCentres(c, c2, n, np, k, pb, pb2);
-          if (rows) {
-            new Int32Array(mem.buffer, pi, count).set(rows.subarray(0, count));
-            ex.distIdx(px, pi, count, k, pb, np, px2, pb2, pd);
-          } else ex.dist2(px, count, k, pb, np, px2, pb2, pd);
-          ex.argmin2(pd, count, np, pl, p1, p2);
+          if (rows) new Int32Array(mem.buffer, pi, count).set(rows.subarray(0, count));
+          ex.assign(px, pi, rows ? 1 : 0, count, k, pb, np, px2, pb2, pd, pl, p1, p2);
           return { labels: new Int32Array(mem.buffer, pl, count), best: new Float64Array(mem.buffer, p1, count), second: new Float64Array(mem.buffer, p2, count) };
         },
         centreGaps(c, n, half) {

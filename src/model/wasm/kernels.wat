@@ -8,7 +8,8 @@
 ;; cholesky(a, p) -> 0 | i + 1:          in-place lower Cholesky factor (row-major)
 ;; cholSolve(l, p, b, h):               B := (L L^T)^-1 B in place (h even)
 ;; distIdx(a, idx, m, k, b, n, a2, b2, c): dist2 of the rows idx[0..m) of A
-;; argmin2(d, m, n, lab, best, second): per-row argmin and the two smallest values
+;; argmin2(d, m, n, lab, best, second): per-row argmin and the two smallest values (n even)
+;; assign(a, idx, useIdx, m, k, b, n, a2, b2, dbuf, lab, best, second): distances + argmin2 in chunks
 ;; centreGaps(c, n, k, half):          half the distance from each centre to the nearest other one
 ;; expNeg(g, d, m, k, out):             out[i,j] = exp(-g[j] d[i,j])   (k even)
 ;; Pointers are byte offsets into the exported memory (16-byte aligned).
@@ -648,28 +649,61 @@
       (param $a2 i32) (param $b2 i32) (param $c i32)
     (call $kernelDistIdx (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
       (i32.const 1) (local.get $a2) (local.get $b2) (local.get $idx)))
-  ;; argmin2(d, m, n, lab, best, second): per row of D (m x n) the first smallest value, its column,
-  ;; and the second smallest value (Infinity when n = 1).
-  (func (export "argmin2") (param $d i32) (param $m i32) (param $n i32) (param $lab i32) (param $best i32) (param $second i32)
-    (local $i i32) (local $k i32) (local $o i32) (local $bk i32) (local $b1 f64) (local $b2 f64) (local $v f64)
+  ;; argmin2(d, m, n, lab, best, second): per row of D (m x n, n even) the smallest value, the first
+  ;; column holding it, and the second smallest value (equal to the smallest on ties; Infinity for
+  ;; one real column next to the +Infinity pad). Per lane the two smallest are kept with min/max.
+  (func $argmin2 (export "argmin2") (param $d i32) (param $m i32) (param $n i32) (param $lab i32) (param $best i32) (param $second i32)
+    (local $i i32) (local $k i32) (local $o i32) (local $nb i32) (local $v v128) (local $lo v128) (local $hi v128) (local $b1 f64) (local $b2 f64) (local $s v128)
+    (local.set $nb (i32.shl (local.get $n) (i32.const 3)))
     (block $iend (loop $iloop (br_if $iend (i32.ge_s (local.get $i) (local.get $m)))
-      (local.set $o (i32.add (local.get $d) (i32.shl (i32.mul (local.get $i) (local.get $n)) (i32.const 3))))
-      (local.set $b1 (f64.load (local.get $o)))
-      (local.set $b2 (f64.const inf))
-      (local.set $bk (i32.const 0))
-      (local.set $k (i32.const 1))
-      (block $kend (loop $kloop (br_if $kend (i32.ge_s (local.get $k) (local.get $n)))
-        (local.set $v (f64.load (i32.add (local.get $o) (i32.shl (local.get $k) (i32.const 3)))))
-        (if (f64.lt (local.get $v) (local.get $b1))
-          (then (local.set $b2 (local.get $b1)) (local.set $b1 (local.get $v)) (local.set $bk (local.get $k)))
-          (else (if (f64.lt (local.get $v) (local.get $b2)) (then (local.set $b2 (local.get $v))))))
-        (local.set $k (i32.add (local.get $k) (i32.const 1)))
+      (local.set $o (i32.add (local.get $d) (i32.mul (local.get $i) (local.get $nb))))
+      (local.set $lo (f64x2.splat (f64.const inf)))
+      (local.set $hi (f64x2.splat (f64.const inf)))
+      (local.set $k (i32.const 0))
+      (block $kend (loop $kloop (br_if $kend (i32.ge_s (local.get $k) (local.get $nb)))
+        (local.set $v (v128.load (i32.add (local.get $o) (local.get $k))))
+        (local.set $hi (f64x2.min (local.get $hi) (f64x2.max (local.get $lo) (local.get $v))))
+        (local.set $lo (f64x2.min (local.get $lo) (local.get $v)))
+        (local.set $k (i32.add (local.get $k) (i32.const 16)))
         (br $kloop)))
-      (i32.store (i32.add (local.get $lab) (i32.shl (local.get $i) (i32.const 2))) (local.get $bk))
+      (local.set $b1 (f64.min (f64x2.extract_lane 0 (local.get $lo)) (f64x2.extract_lane 1 (local.get $lo))))
+      (local.set $b2 (f64.min (f64.max (f64x2.extract_lane 0 (local.get $lo)) (f64x2.extract_lane 1 (local.get $lo)))
+                              (f64.min (f64x2.extract_lane 0 (local.get $hi)) (f64x2.extract_lane 1 (local.get $hi)))))
+      ;; first column equal to the smallest value
+      (local.set $s (f64x2.splat (local.get $b1)))
+      (local.set $k (i32.const 0))
+      (block $fend (loop $floop
+        (local.set $v (f64x2.eq (v128.load (i32.add (local.get $o) (local.get $k))) (local.get $s)))
+        (br_if $fend (v128.any_true (local.get $v)))
+        (local.set $k (i32.add (local.get $k) (i32.const 16)))
+        (br $floop)))
+      (local.set $k (i32.shr_u (local.get $k) (i32.const 3)))
+      (if (i64.eqz (i64x2.extract_lane 0 (local.get $v))) (then (local.set $k (i32.add (local.get $k) (i32.const 1)))))
+      (i32.store (i32.add (local.get $lab) (i32.shl (local.get $i) (i32.const 2))) (local.get $k))
       (f64.store (i32.add (local.get $best) (i32.shl (local.get $i) (i32.const 3))) (local.get $b1))
       (f64.store (i32.add (local.get $second) (i32.shl (local.get $i) (i32.const 3))) (local.get $b2))
       (local.set $i (i32.add (local.get $i) (i32.const 1)))
       (br $iloop))))
+  ;; assign(a, idx, useIdx, m, k, b, n, a2, b2, dbuf, lab, best, second): argmin2 of the squared
+  ;; distances of m rows of A (rows idx[0..m) when useIdx) to the n centres in B, in chunks of
+  ;; 32 rows so each chunk's distances (dbuf, 32 x n) are read back from cache.
+  (func (export "assign") (param $a i32) (param $idx i32) (param $useIdx i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32)
+      (param $a2 i32) (param $b2 i32) (param $dbuf i32) (param $lab i32) (param $best i32) (param $second i32)
+    (local $s i32) (local $cm i32)
+    (block $end (loop $loop (br_if $end (i32.ge_s (local.get $s) (local.get $m)))
+      (local.set $cm (i32.sub (local.get $m) (local.get $s)))
+      (if (i32.gt_s (local.get $cm) (i32.const 32)) (then (local.set $cm (i32.const 32))))
+      (if (local.get $useIdx)
+        (then (call $kernelDistIdx (local.get $a) (local.get $cm) (local.get $k) (local.get $b) (local.get $n) (local.get $dbuf)
+          (i32.const 1) (local.get $a2) (local.get $b2) (i32.add (local.get $idx) (i32.shl (local.get $s) (i32.const 2)))))
+        (else (call $kernelDist (i32.add (local.get $a) (i32.shl (i32.mul (local.get $s) (local.get $k)) (i32.const 3))) (local.get $cm) (local.get $k) (local.get $b) (local.get $n) (local.get $dbuf)
+          (i32.const 1) (i32.add (local.get $a2) (i32.shl (local.get $s) (i32.const 3))) (local.get $b2) (i32.const 0))))
+      (call $argmin2 (local.get $dbuf) (local.get $cm) (local.get $n)
+        (i32.add (local.get $lab) (i32.shl (local.get $s) (i32.const 2)))
+        (i32.add (local.get $best) (i32.shl (local.get $s) (i32.const 3)))
+        (i32.add (local.get $second) (i32.shl (local.get $s) (i32.const 3))))
+      (local.set $s (i32.add (local.get $s) (i32.const 32)))
+      (br $loop))))
   ;; centreGaps(c, n, k, half): half[a] = sqrt(min over b != a of |c_a - c_b|^2) / 2 (c is n x k, row-major).
   (func (export "centreGaps") (param $c i32) (param $n i32) (param $k i32) (param $half i32)
     (local $a i32) (local $b i32) (local $l i32) (local $k2 i32) (local $pa i32) (local $pb i32) (local $acc v128) (local $e v128) (local $s f64) (local $t f64) (local $ha i32) (local $hb i32)
