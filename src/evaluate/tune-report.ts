@@ -9,7 +9,7 @@
  * canvases; a CSP allows only the two inline scripts by hash.
  */
 import type { TuneResult, RankedEntry } from './tune.ts';
-import { NOISE_SE_MULTIPLE } from './tune.ts';
+import { NOISE_SE_MULTIPLE, num as fmt, rankingCells } from './tune.ts';
 import { formatStep } from './backtest.ts';
 import { escapeHtml, renderReportPage } from './report.ts';
 
@@ -24,11 +24,6 @@ export interface TuneReportOptions {
   topCurves?: number;
   /** Rows of the ranking table (default 25). */
   topRows?: number;
-}
-
-function fmt(v: number | null | undefined, digits = 3): string {
-  if (v === null || v === undefined || !Number.isFinite(v)) return '–';
-  return v.toFixed(digits);
 }
 
 function timeLabel(ms: number, timeZone: string): string {
@@ -145,30 +140,11 @@ const BASELINE_LABEL: Record<string, string> = {
 };
 
 function rankingTable(r: TuneResult, rows: number): string {
-  const showRidge = r.ranking.some((e) => e.values.ridge !== undefined);
-  const showLags = r.ranking.some((e) => e.values.lags !== undefined);
-  const head = ['#', 'window', 'K', 'width', ...(showRidge ? ['ridge'] : []), ...(showLags ? ['lags'] : []), `MASE (m=${r.season})`, 'vs best ± SE', 'RMSE', 'coverage', 'fit ms / refit', 'gain vs day', 'gain vs week', ''];
-  const pct = (v: number | null | undefined) => (v === null || v === undefined || !Number.isFinite(v) ? '–' : `${v >= 0 ? '+' : ''}${(100 * v).toFixed(1)} %`);
-  const body = r.ranking.slice(0, rows).map((e) => {
-    const vb = e.vsBest;
-    const cells = [
-      String(e.rank),
-      String(e.values.window),
-      String(e.values.centres),
-      e.values.widthMode,
-      ...(showRidge ? [String(e.values.ridge ?? '')] : []),
-      ...(showLags ? [e.values.lags ? e.values.lags.map(String).join(',') : ''] : []),
-      fmt(e.score.model.mase),
-      vb ? `${vb.meanDiff >= 0 ? '+' : ''}${fmt(vb.meanDiff)} ± ${fmt(vb.se)}` : '',
-      fmt(e.score.model.rmse, 2),
-      fmt(e.score.model.coverage, 2),
-      fmt(e.score.fit.meanMs, 0),
-      pct(e.gain['seasonal-naive-daily']),
-      pct(e.gain['seasonal-naive-weekly']),
-      e.rank === 1 ? 'best' : vb?.withinNoise ? '≈ best (within noise)' : '',
-    ];
-    const cls = e.rank === 1 ? 'best' : vb?.withinNoise ? 'noise' : '';
-    return `<tr class="${cls}">${cells.map((c) => `<td>${escapeHtml(c)}</td>`).join('')}</tr>`;
+  const { head, rows: cells } = rankingCells(r, rows, 'html');
+  const body = cells.map((row, i) => {
+    const e = r.ranking[i];
+    const cls = e.rank === 1 ? 'best' : e.vsBest?.withinNoise ? 'noise' : '';
+    return `<tr class="${cls}">${row.map((c) => `<td>${escapeHtml(c)}</td>`).join('')}</tr>`;
   });
   return `<table class="ranking"><thead><tr>${head.map((h) => `<th scope="col">${escapeHtml(h)}</th>`).join('')}</tr></thead><tbody>${body.join('')}</tbody></table>`;
 }

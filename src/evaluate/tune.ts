@@ -516,25 +516,36 @@ export function tuneJson(r: TuneResult, extra: { best?: Record<string, unknown>;
   };
 }
 
-function num(v: number | null | undefined, digits = 3): string {
+/** A number with `digits` decimals, '–' when missing. */
+export function num(v: number | null | undefined, digits = 3): string {
   if (v === null || v === undefined || !Number.isFinite(v)) return '–';
   return v.toFixed(digits);
 }
 
-function pct(v: number | null | undefined): string {
-  if (v === null || v === undefined || !Number.isFinite(v)) return '–';
-  return `${v >= 0 ? '+' : ''}${(100 * v).toFixed(1)}%`;
-}
-
-/** Text table of the ranking (top `top` rows), with the noise statement under it. */
-export function formatTuneTable(r: TuneResult, opts: { top?: number } = {}): string {
-  const top = opts.top ?? 15;
+/**
+ * Header and cells of the ranking table (top `top` rows) for the terminal ('text': short labels)
+ * or the HTML report ('html': spelled-out labels); `firstScore` is the index of the MASE column.
+ */
+export function rankingCells(r: TuneResult, top: number, style: 'text' | 'html'): { head: string[]; rows: string[][]; firstScore: number } {
+  const html = style === 'html';
   const showRidge = r.ranking.some((e) => e.values.ridge !== undefined);
   const showLags = r.ranking.some((e) => e.values.lags !== undefined);
-  const head = ['#', 'window', 'K', 'width', ...(showRidge ? ['ridge'] : []), ...(showLags ? ['lags'] : []), `MASE(m=${r.season})`, 'vs best', 'RMSE', 'cover', 'fit ms', 'gain/day', 'gain/week', ''];
-  const rows: string[][] = r.ranking.slice(0, top).map((e) => {
+  const settings = ['#', 'window', 'K', 'width', ...(showRidge ? ['ridge'] : []), ...(showLags ? ['lags'] : [])];
+  const head = [
+    ...settings,
+    html ? `MASE (m=${r.season})` : `MASE(m=${r.season})`,
+    html ? 'vs best ± SE' : 'vs best',
+    'RMSE',
+    html ? 'coverage' : 'cover',
+    html ? 'fit ms / refit' : 'fit ms',
+    html ? 'gain vs day' : 'gain/day',
+    html ? 'gain vs week' : 'gain/week',
+    '',
+  ];
+  const gap = html ? ' ' : '';
+  const pct = (v: number | null | undefined): string => (v === null || v === undefined || !Number.isFinite(v) ? '–' : `${v >= 0 ? '+' : ''}${(100 * v).toFixed(1)}${gap}%`);
+  const rows = r.ranking.slice(0, top).map((e) => {
     const vb = e.vsBest;
-    const mark = e.rank === 1 ? 'best' : vb?.withinNoise ? '≈ best' : '';
     return [
       String(e.rank),
       String(e.values.window),
@@ -543,17 +554,24 @@ export function formatTuneTable(r: TuneResult, opts: { top?: number } = {}): str
       ...(showRidge ? [String(e.values.ridge ?? '')] : []),
       ...(showLags ? [e.values.lags ? e.values.lags.map(String).join(',') : ''] : []),
       num(e.score.model.mase),
-      vb ? `${vb.meanDiff >= 0 ? '+' : ''}${num(vb.meanDiff)}±${num(vb.se)}` : '',
+      vb ? `${vb.meanDiff >= 0 ? '+' : ''}${num(vb.meanDiff)}${gap}±${gap}${num(vb.se)}` : '',
       num(e.score.model.rmse, 2),
       num(e.score.model.coverage, 2),
       num(e.score.fit.meanMs, 0),
       pct(e.gain['seasonal-naive-daily']),
       pct(e.gain['seasonal-naive-weekly']),
-      mark,
+      e.rank === 1 ? 'best' : vb?.withinNoise ? (html ? '≈ best (within noise)' : '≈ best') : '',
     ];
   });
+  return { head, rows, firstScore: settings.length };
+}
+
+/** Text table of the ranking (top `top` rows), with the noise statement under it. */
+export function formatTuneTable(r: TuneResult, opts: { top?: number } = {}): string {
+  const top = opts.top ?? 15;
+  const { head, rows, firstScore } = rankingCells(r, top, 'text');
   const widths = head.map((h, i) => Math.max(h.length, ...rows.map((row) => row[i].length)));
-  const right = new Set(head.map((_, i) => i).filter((i) => i === 0 || i >= head.indexOf(`MASE(m=${r.season})`)));
+  const right = new Set(head.map((_, i) => i).filter((i) => i === 0 || i >= firstScore));
   right.delete(head.length - 1);
   const line = (cells: string[]) => cells.map((c, i) => (right.has(i) ? c.padStart(widths[i]) : c.padEnd(widths[i]))).join('  ').trimEnd();
   const out = [line(head), ...rows.map(line)];
