@@ -391,8 +391,9 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
       const a = labels[i];
       const l = lower[i] - (a === mk ? m2 : m1);
       lower[i] = l;
-      const bound = l > half[a] ? l : half[a];
-      if (Math.sqrt(own[i]) >= bound * (1 - 1e-9)) todo[count++] = i;
+      // sqrt(own) >= bound (1 - 1e-9), compared squared (bound >= 0: half is).
+      const bound = (l > half[a] ? l : half[a]) * (1 - 1e-9);
+      if (own[i] >= bound * bound) todo[count++] = i;
     }
     if (count > 0) assignRows(todo, count);
   };
