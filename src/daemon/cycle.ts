@@ -25,7 +25,7 @@ import { Backoff } from './backoff.ts';
 import { DaemonError, canRetry, describeError, retryAfterMs, type ErrorRecord } from './errors.ts';
 import type { DaemonMetrics } from './metrics.ts';
 import { emptyTimings, type StageTimings } from './timings.ts';
-import type { CycleState, DriftAssessment, DriftAssessor, Fitter, IssuedStep, MaturedError } from './ports.ts';
+import type { CycleState, DriftAssessment, DriftAssessor, Fitter, IssuedStep, MaturedError, PoolAddition } from './ports.ts';
 
 export type CycleOutcome = 'ok' | 'failed' | 'stale' | 'aborted';
 export type Stage = keyof StageTimings;
@@ -78,9 +78,26 @@ export interface CycleOptions {
   latestForecastOf?: (series: string) => Promise<ForecastBatch | null>;
 }
 
-/** A read cache for one run over many series: exogenous inputs shared by many series are read once. */
+/**
+ * A read cache for one run over many series: exogenous inputs shared by many series are read
+ * once, and regularised once per distinct set of regularise options (e.g. one outdoor
+ * temperature feeding a thousand substations).
+ */
 export class ReadCache {
   #entries = new Map<string, Promise<Reading[]>>();
+  #regular = new Map<string, RegularSeries>();
+  /**
+   * The regular series `make` builds for this key, built once per run. Callers must not change
+   * it (the fits only read their inputs; inputs extended with forecasts are not cached).
+   */
+  regular(key: string, make: () => RegularSeries): RegularSeries {
+    let s = this.#regular.get(key);
+    if (!s) {
+      s = make();
+      this.#regular.set(key, s);
+    }
+    return s;
+  }
   get(key: string, read: () => Promise<Reading[]>): Promise<Reading[]> {
     let p = this.#entries.get(key);
     if (!p) {
@@ -231,9 +248,16 @@ export class SeriesCycle {
       const originIndex = lastValueIndex(target);
       const exo: Record<string, RegularSeries> = {};
       for (const e of r.exogenous) {
-        const ex = regularize(exoReadings[e.name], { ...regOpts, series: e.name, endMs: e.atTarget ? endMs + H * step : endMs });
-        if (e.atTarget && originIndex >= 0) await this.#extendWithForecast(ex, e.name, target.startMs + originIndex * step);
-        exo[e.name] = ex;
+        const opts = { ...regOpts, series: e.name, endMs: e.atTarget ? endMs + H * step : endMs };
+        if (e.atTarget) {
+          // Extended with this run's latest forecast of the input below: a copy per series.
+          const ex = regularize(exoReadings[e.name], opts);
+          if (originIndex >= 0) await this.#extendWithForecast(ex, e.name, target.startMs + originIndex * step);
+          exo[e.name] = ex;
+        } else {
+          const build = () => regularize(exoReadings[e.name], opts);
+          exo[e.name] = cache ? cache.regular(JSON.stringify([e.source, opts]), build) : build();
+        }
       }
       return { target, originIndex, exo };
     });
@@ -384,7 +408,7 @@ export class SeriesCycle {
     const overall = new MetricAccumulator(quantiles);
     const byLead = new Map<number, MetricAccumulator>();
     const scales = new Map<number, number>();
-    let added = 0;
+    const added: PoolAddition[] = [];
     const settled: IssuedStep[] = [];
     const bandVals = new Float64Array(quantiles.length);
     let expired = 0;
@@ -411,8 +435,9 @@ export class SeriesCycle {
       acc.add(actual, st.value, scale, bandVals);
       if (!Number.isFinite(actual)) continue;
       const e = actual - st.value;
-      addResiduals(pool, st.lead, [e], originPhase(st.issuedAt, step, phases));
-      added++;
+      const phase = originPhase(st.issuedAt, step, phases);
+      addResiduals(pool, st.lead, [e], phase);
+      added.push({ lead: st.lead, residual: e, phase });
       errors.push({ t: st.t, lead: st.lead, error: e, scaledError: scale > 0 ? Math.abs(e) / scale : Number.NaN });
       newestT = Math.max(newestT, st.t);
     }
@@ -442,7 +467,9 @@ export class SeriesCycle {
       if (p) points.push(p);
     }
     if (points.length) await this.#writeWithRetry('scores', () => store.writeScores(points));
-    if (added > 0 || seeded) await state.putResidualPool(r.name, pool);
+    // A pool seeded in this cycle is written whole; otherwise the store may append the additions.
+    if (seeded) await state.putResidualPool(r.name, pool);
+    else if (added.length > 0) await state.putResidualPool(r.name, pool, added);
     await state.removeIssued(r.name, settled);
     result.scored = settled.length - expired;
     result.expired = expired;

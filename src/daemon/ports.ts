@@ -23,6 +23,13 @@ export interface IssuedStep {
   bands: Record<string, number>;
 }
 
+/** One residual added to a band pool (addResiduals(pool, lead, [residual], phase)). */
+export interface PoolAddition {
+  lead: number;
+  residual: number;
+  phase: number;
+}
+
 /** A residual (actual - forecast) of one lead, keyed by its target time. */
 export interface ResidualEntry {
   lead: number;
@@ -47,7 +54,11 @@ export interface CycleState {
    * when its shape (horizon, phases) no longer matches.
    */
   getResidualPool(series: string, shape: { horizon: number; phases: number; capacityPerLead: number }): Promise<ResidualPool>;
-  putResidualPool(series: string, pool: ResidualPool): Promise<void>;
+  /**
+   * Keeps the pool. `added`: the residuals added to it, in order, since getResidualPool returned
+   * it; with them the store may append just those instead of rewriting the whole pool.
+   */
+  putResidualPool(series: string, pool: ResidualPool, added?: readonly PoolAddition[]): Promise<void>;
   /** Ledger: record every step of the batch (idempotent per issue time + lead); also the series' latest forecast. */
   recordIssued(series: string, batch: ForecastBatch): Promise<void>;
   /** Ledger steps with target time <= upToMs, oldest target first. */

@@ -10,7 +10,7 @@ import type { StateStore } from '../store/state.ts';
 import type { ForecastBatch } from '../store/types.ts';
 import { decodeFittedForecaster, encodeFittedForecaster, type FittedForecaster, type StoredForecaster } from '../forecast/engine.ts';
 import { describeError } from './errors.ts';
-import type { CycleState, IssuedStep } from './ports.ts';
+import type { CycleState, IssuedStep, PoolAddition } from './ports.ts';
 import { createResidualPool, residualPoolFromRows, type ResidualPool } from '../evaluate/bands.ts';
 
 /** Reference error level a drift detector compares against. */
@@ -26,6 +26,8 @@ export interface DriftBaseline {
 
 const BASELINE_KEY = (s: string) => `drift-baseline:${s}`;
 const POOL_KEY = (s: string) => `residual-pool:${s}`;
+/** Residuals added since the pool under POOL_KEY was written (appended each cycle, folded in now and then). */
+const POOL_ADDED_KEY = (s: string) => `residual-pool-added:${s}`;
 
 /**
  * A residual pool as stored by earlier versions (JSON text in kv, still read): one kv row per
@@ -208,6 +210,81 @@ export function unpackPool(b: Uint8Array): ResidualPool | null {
   return pool;
 }
 
+/** "RCRA": radcast residual pool additions. */
+const ADDED_MAGIC = 0x41524352;
+const ADDED_VERSION = 1;
+const ADDED_PREFIX = 12;
+/** Bytes per addition: u16 lead, u16 phase, f64 residual. */
+const ADDED_ENTRY = 12;
+
+/**
+ * Residual additions as bytes: "RCRA", u32 version, u32 count, then per addition u16 lead, u16
+ * phase, f64 residual (little-endian). `before` (earlier additions, same form) is kept in front.
+ */
+export function packAdditions(added: readonly PoolAddition[], before?: Uint8Array): Uint8Array {
+  const n0 = before ? (unpackAdditions(before)?.length ?? 0) : 0;
+  const out = new Uint8Array(ADDED_PREFIX + ADDED_ENTRY * (n0 + added.length));
+  const v = new DataView(out.buffer);
+  v.setUint32(0, ADDED_MAGIC, true);
+  v.setUint32(4, ADDED_VERSION, true);
+  v.setUint32(8, n0 + added.length, true);
+  if (before && n0 > 0) out.set(before.subarray(ADDED_PREFIX, ADDED_PREFIX + ADDED_ENTRY * n0), ADDED_PREFIX);
+  let at = ADDED_PREFIX + ADDED_ENTRY * n0;
+  for (const a of added) {
+    v.setUint16(at, a.lead, true);
+    v.setUint16(at + 2, a.phase, true);
+    v.setFloat64(at + 4, a.residual, true);
+    at += ADDED_ENTRY;
+  }
+  return out;
+}
+
+/** null when the bytes are not readable additions. */
+export function unpackAdditions(b: Uint8Array): PoolAddition[] | null {
+  if (b.length < ADDED_PREFIX) return null;
+  const v = new DataView(b.buffer, b.byteOffset, b.byteLength);
+  if (v.getUint32(0, true) !== ADDED_MAGIC || v.getUint32(4, true) !== ADDED_VERSION) return null;
+  const n = v.getUint32(8, true);
+  if (b.length !== ADDED_PREFIX + ADDED_ENTRY * n) return null;
+  const out: PoolAddition[] = [];
+  for (let i = 0, at = ADDED_PREFIX; i < n; i++, at += ADDED_ENTRY) out.push({ lead: v.getUint16(at, true), phase: v.getUint16(at + 2, true), residual: v.getFloat64(at + 4, true) });
+  return out;
+}
+
+/**
+ * Adds the residuals to the pool with the result of addResiduals(pool, lead, [residual], phase)
+ * called for each in order, but trimming each lead once at the end: the newest capacityPerLead
+ * are kept and the drop count grows by the same total either way. false (pool unchanged) when an
+ * addition does not fit the pool (lead or phase out of range).
+ */
+export function applyAdditions(pool: ResidualPool, added: readonly PoolAddition[]): boolean {
+  const P = pool.phases;
+  for (const a of added) if (!Number.isInteger(a.lead) || a.lead < 1 || a.lead > pool.horizon || !(a.phase >= 0 && a.phase < Math.max(P, 1))) return false;
+  const grown = new Set<number>();
+  for (const a of added) {
+    if (!Number.isFinite(a.residual)) continue;
+    pool.byLead[a.lead - 1].push(a.residual);
+    pool.phaseByLead[a.lead - 1].push(P > 1 ? a.phase : 0);
+    grown.add(a.lead - 1);
+  }
+  for (const h of grown) {
+    const over = pool.byLead[h].length - pool.capacityPerLead;
+    if (over > 0) {
+      pool.byLead[h].splice(0, over);
+      pool.phaseByLead[h].splice(0, over);
+      pool.dropped += over;
+    }
+  }
+  return true;
+}
+
+/** Most additions kept beside a pool before it is rewritten whole: an eighth of its size (at least 4 per lead). */
+function additionsLimit(pool: ResidualPool): number {
+  let n = 0;
+  for (const l of pool.byLead) n += l.length;
+  return Math.max(4 * pool.horizon, Math.floor(n / 8));
+}
+
 /** A pool stored as JSON text by an earlier version (v1, base64 arrays). */
 function decodeJsonPool(text: string): ResidualPool | null {
   try {
@@ -222,6 +299,8 @@ export class StateAdapter implements CycleState {
   readonly #logger: Logger;
   /** Step of a series (to read residual rows of older state files); unset = those rows are ignored. */
   readonly #stepOf: ((series: string) => number) | undefined;
+  /** Series whose stored pool was read back whole in this process: additions may be appended to it. */
+  readonly #poolBase = new Map<string, { horizon: number; phases: number; capacityPerLead: number; logCount: number }>();
 
   constructor(store: StateStore, logger: Logger, opts: { stepOf?: (series: string) => number } = {}) {
     this.store = store;
@@ -254,11 +333,25 @@ export class StateAdapter implements CycleState {
     await this.putStoredModel(series, encodeFittedForecaster(fitted), atMs);
   }
 
+  /**
+   * The pool is kept as a packed pool plus the residuals added since it was written (a small
+   * row appended each cycle); every so often (additionsLimit) the pool is written whole again.
+   * A cycle then writes a few hundred bytes instead of the whole pool (tens of kB).
+   */
   async getResidualPool(series: string, shape: { horizon: number; phases: number; capacityPerLead: number }): Promise<ResidualPool> {
+    this.#poolBase.delete(series);
     const stored = this.store.getStored(POOL_KEY(series));
     if (stored !== undefined) {
       const pool = typeof stored === 'string' ? decodeJsonPool(stored) : unpackPool(stored);
       if (pool && pool.horizon === shape.horizon && pool.phases === shape.phases) {
+        let logCount = 0;
+        const log = typeof stored === 'string' ? undefined : this.store.getStored(POOL_ADDED_KEY(series));
+        if (log !== undefined) {
+          const added = log instanceof Uint8Array ? unpackAdditions(log) : null;
+          if (added && applyAdditions(pool, added)) logCount = added.length;
+          else this.#logger.warn({ series, code: 'STATE_POOL_UNREADABLE' }, 'stored band residuals of the latest cycles unreadable; they are left out of the bands');
+        }
+        const sameCapacity = pool.capacityPerLead === shape.capacityPerLead;
         pool.capacityPerLead = shape.capacityPerLead;
         for (let i = 0; i < pool.byLead.length; i++) {
           const over = pool.byLead[i].length - shape.capacityPerLead;
@@ -267,6 +360,8 @@ export class StateAdapter implements CycleState {
             pool.phaseByLead[i].splice(0, over);
           }
         }
+        // Appending is right only onto a packed pool of this shape whose additions all read back.
+        if (typeof stored !== 'string' && sameCapacity && (log === undefined || logCount > 0)) this.#poolBase.set(series, { horizon: shape.horizon, phases: shape.phases, capacityPerLead: shape.capacityPerLead, logCount });
         return pool;
       }
       if (!pool) this.#logger.warn({ series, code: 'STATE_POOL_UNREADABLE' }, 'stored band residuals unreadable; the bands start again from the hold-out residuals');
@@ -280,8 +375,25 @@ export class StateAdapter implements CycleState {
     return residualPoolFromRows(rows, { horizon: shape.horizon, stepMs: this.#stepOf(series), phases: shape.phases, capacityPerLead: shape.capacityPerLead });
   }
 
-  async putResidualPool(series: string, pool: ResidualPool): Promise<void> {
-    this.store.setBytes(POOL_KEY(series), packPool(pool), Date.now());
+  async putResidualPool(series: string, pool: ResidualPool, added?: readonly PoolAddition[]): Promise<void> {
+    const now = Date.now();
+    const base = this.#poolBase.get(series);
+    if (added && base && base.horizon === pool.horizon && base.phases === pool.phases && base.capacityPerLead === pool.capacityPerLead && base.logCount + added.length <= additionsLimit(pool)) {
+      if (added.length === 0) return;
+      const before = base.logCount > 0 ? this.store.getStored(POOL_ADDED_KEY(series)) : undefined;
+      if (base.logCount === 0 || before instanceof Uint8Array) {
+        this.store.setBytes(POOL_ADDED_KEY(series), packAdditions(added, before instanceof Uint8Array ? before : undefined), now);
+        base.logCount += added.length;
+        return;
+      }
+    }
+    // The whole pool, and no additions beside it (one commit, so a crash leaves one or the other).
+    const bytes = packPool(pool);
+    this.store.transaction(() => {
+      this.store.setBytes(POOL_KEY(series), bytes, now);
+      this.store.deleteJson(POOL_ADDED_KEY(series));
+    });
+    this.#poolBase.set(series, { horizon: pool.horizon, phases: pool.phases, capacityPerLead: pool.capacityPerLead, logCount: 0 });
   }
 
   async recordIssued(series: string, batch: ForecastBatch): Promise<void> {

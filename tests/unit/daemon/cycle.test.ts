@@ -1,5 +1,6 @@
 import { describe, expect, it } from 'vitest';
-import { SeriesCycle, checkBatchFinite } from '../../../src/daemon/cycle.ts';
+import { ReadCache, SeriesCycle, checkBatchFinite } from '../../../src/daemon/cycle.ts';
+import type { RegularSeries } from '../../../src/series/types.ts';
 import { runAll, dependencyWaves } from '../../../src/daemon/runner.ts';
 import { InlineFitter } from '../../../src/daemon/pool.ts';
 import { DaemonMetrics } from '../../../src/daemon/metrics.ts';
@@ -259,6 +260,34 @@ describe('runAll over many series', () => {
     expect(errLines.map((l) => l.series).sort()).toEqual(['garbage', 'unreachable']);
     expect(errLines.every((l) => typeof l.code === 'string')).toBe(true);
     expect(sum.timings.fit).toBeGreaterThan(0);
+  });
+
+  it('an input shared by many series is read and regularised once per run, with the same forecasts as alone', async () => {
+    const { store, cycle } = setup();
+    const list = resolved([{ name: 'north' }, { name: 'yard' }, { name: 'hill' }], { exogenous: [{ name: 'oskaveld-outdoor-temp', lags: [1, 24] }] });
+    store.readings.set('oskaveld-outdoor-temp', syntheticLoad({ fromMs: END - days(40), toMs: END, seed: 11, level: 5 }));
+    list.forEach((s, k) => store.readings.set(s.name, syntheticLoad({ fromMs: END - days(40), toMs: END, seed: k + 2 })));
+    const made: string[] = [];
+    class CountingCache extends ReadCache {
+      override regular(key: string, make: () => RegularSeries): RegularSeries {
+        return super.regular(key, () => {
+          made.push(key);
+          return make();
+        });
+      }
+    }
+    const cache = new CountingCache();
+    const shared = [];
+    for (const s of list) shared.push(await cycle.run(s, { nowMs: NOW, cache }));
+    expect(made).toHaveLength(1);
+    expect(store.reads).toBe(4); // three targets, the input once
+    const { cycle: alone, store: store2 } = setup();
+    store2.readings = store.readings;
+    for (const [k, s] of list.entries()) {
+      const r = await alone.run(s, { nowMs: NOW });
+      expect(r.outcome).toBe('ok');
+      expect(r.forecast!.points.map((p) => p.value)).toEqual(shared[k].forecast!.points.map((p) => p.value));
+    }
   });
 
   it('runs a series after the series whose forecast it uses at target time', () => {
