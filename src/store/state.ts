@@ -181,6 +181,7 @@ export class StateStore {
       ),
       putKv: db.prepare('INSERT INTO kv (key, value, updated_at) VALUES (?, ?, ?) ON CONFLICT (key) DO UPDATE SET value = excluded.value, updated_at = excluded.updated_at'),
       getKv: db.prepare<[string], { value: string | Buffer }>('SELECT value FROM kv WHERE key = ?'),
+      getKvTime: db.prepare<[string], number>('SELECT updated_at FROM kv WHERE key = ?').pluck(),
       delKv: db.prepare('DELETE FROM kv WHERE key = ?'),
     };
   }
@@ -264,9 +265,10 @@ export class StateStore {
     this.#tx(() => {
       for (const b of batches) {
         for (const p of b.points) this.#s.putLedger.run(b.series, b.issuedAt, p.lead, p.t, p.value, JSON.stringify(p.bands));
+        // The row's updated_at is the kept batch's issue time (only this method writes latest: rows).
         const key = `latest:${b.series}`;
-        const prev = this.#s.getKv.get(key);
-        if (!prev || typeof prev.value !== 'string' || (JSON.parse(prev.value) as ForecastBatch).issuedAt <= b.issuedAt) this.#s.putKv.run(key, JSON.stringify(b), b.issuedAt);
+        const prevAt = this.#s.getKvTime.get(key);
+        if (prevAt === undefined || prevAt <= b.issuedAt) this.#s.putKv.run(key, JSON.stringify(b), b.issuedAt);
       }
     });
   }
