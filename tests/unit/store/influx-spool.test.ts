@@ -10,88 +10,12 @@ import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import Database from 'better-sqlite3';
-import { Backoff } from '../../../src/store/influx/backoff.ts';
 import { StoreError } from '../../../src/store/influx/errors.ts';
-import type { Logger } from '../../../src/store/influx/log.ts';
-import { Outbox, type LineSink } from '../../../src/store/influx/outbox.ts';
-import type { LineKind, OutLine } from '../../../src/store/influx/schema.ts';
+import type { LineKind } from '../../../src/store/influx/schema.ts';
+import { FakeClock, FakeSink, lines, makeOutbox, settle } from './outbox-fakes.ts';
 import type { PointSpool, SpooledLine } from '../../../src/store/influx/spool.ts';
 import { SqliteSpool, spoolTarget } from '../../../src/store/spool.ts';
 import { StateStore } from '../../../src/store/state.ts';
-
-class FakeClock {
-  now = 0;
-  #timers: { at: number; fn: () => void; id: number }[] = [];
-  #id = 0;
-  setTimer = (fn: () => void, ms: number): unknown => {
-    const id = ++this.#id;
-    this.#timers.push({ at: this.now + ms, fn, id });
-    return id;
-  };
-  clearTimer = (h: unknown): void => {
-    this.#timers = this.#timers.filter((t) => t.id !== h);
-  };
-  pending(): number[] {
-    return this.#timers.map((t) => t.at - this.now).sort((a, b) => a - b);
-  }
-  async advance(ms: number): Promise<void> {
-    const end = this.now + ms;
-    for (;;) {
-      await settle();
-      this.#timers.sort((a, b) => a.at - b.at);
-      const next = this.#timers[0];
-      if (!next || next.at > end) break;
-      this.#timers.shift();
-      this.now = next.at;
-      next.fn();
-    }
-    this.now = end;
-    await settle();
-  }
-}
-
-async function settle(): Promise<void> {
-  for (let i = 0; i < 10; i++) await new Promise<void>((r) => setImmediate(r));
-}
-
-class FakeSink implements LineSink {
-  batches: string[][] = [];
-  attempts = 0;
-  down = false;
-  #held: Promise<void> | null = null;
-  release: (() => void) | null = null;
-  holdNext(): void {
-    this.#held = new Promise<void>((r) => (this.release = r));
-  }
-  async send(lines: string[]): Promise<void> {
-    this.attempts++;
-    if (this.#held) {
-      const h = this.#held;
-      this.#held = null;
-      await h;
-    }
-    if (this.down) throw new StoreError('STORE_UNREACHABLE', 'POST /write unreachable (ECONNREFUSED)');
-    this.batches.push([...lines]);
-  }
-  get sent(): string[] {
-    return this.batches.flat();
-  }
-}
-
-interface LogRec {
-  level: string;
-  obj: Record<string, unknown>;
-  msg: string;
-}
-function captureLogger(): { logger: Logger; records: LogRec[] } {
-  const records: LogRec[] = [];
-  const at = (level: string) => (obj: object, msg: string) => records.push({ level, obj: obj as Record<string, unknown>, msg });
-  return { logger: { debug: at('debug'), info: at('info'), warn: at('warn'), error: at('error') }, records };
-}
-
-function lines(kind: LineKind, from: number, n: number, tag = 'v'): OutLine[] {
-  return Array.from({ length: n }, (_, i) => ({ kind, key: `${kind}:${from + i}`, line: `${kind} ${tag}=${from + i} ${from + i}` }));
-}
 
 let dir: string;
 let path: string;
@@ -112,26 +36,12 @@ function spool(target = 'influxdb-v1 http://127.0.0.1:8086 db=oskaveld rp='): Sq
 }
 
 function make(opts: { spool?: PointSpool; capacity?: number; spoolCapacity?: number; clock?: FakeClock; sink?: FakeSink } = {}) {
-  const clock = opts.clock ?? new FakeClock();
-  const sink = opts.sink ?? new FakeSink();
-  const { logger, records } = captureLogger();
-  const box = new Outbox({
-    sink,
+  return makeOutbox({
+    ...(opts.clock ? { clock: opts.clock } : {}),
+    ...(opts.sink ? { sink: opts.sink } : {}),
     capacity: opts.capacity ?? 100,
     ...(opts.spool ? { spool: opts.spool, spoolCapacity: opts.spoolCapacity ?? 1_000 } : {}),
-    batchSize: 5,
-    flushIntervalMs: 1_000,
-    backoff: new Backoff({ initialMs: 100, maxMs: 1_600, jitter: 0 }),
-    maxRetryDelayMs: 1_600,
-    closeTimeoutMs: 5_000,
-    dropLogIntervalMs: 10_000,
-    logger,
-    store: 'influxdb-v1',
-    now: () => clock.now,
-    setTimer: clock.setTimer,
-    clearTimer: clock.clearTimer,
   });
-  return { box, sink, clock, records };
 }
 
 describe('SqliteSpool', () => {
