@@ -222,7 +222,7 @@ const ADDED_ENTRY = 12;
  * phase, f64 residual (little-endian). `before` (earlier additions, same form) is kept in front.
  */
 export function packAdditions(added: readonly PoolAddition[], before?: Uint8Array): Uint8Array {
-  const n0 = before ? (unpackAdditions(before)?.length ?? 0) : 0;
+  const n0 = before ? Math.max(0, additionsCount(before)) : 0;
   const out = new Uint8Array(ADDED_PREFIX + ADDED_ENTRY * (n0 + added.length));
   const v = new DataView(out.buffer);
   v.setUint32(0, ADDED_MAGIC, true);
@@ -239,13 +239,20 @@ export function packAdditions(added: readonly PoolAddition[], before?: Uint8Arra
   return out;
 }
 
+/** Number of additions in the bytes; -1 when they are not readable additions. */
+function additionsCount(b: Uint8Array): number {
+  if (b.length < ADDED_PREFIX) return -1;
+  const v = new DataView(b.buffer, b.byteOffset, b.byteLength);
+  if (v.getUint32(0, true) !== ADDED_MAGIC || v.getUint32(4, true) !== ADDED_VERSION) return -1;
+  const n = v.getUint32(8, true);
+  return b.length === ADDED_PREFIX + ADDED_ENTRY * n ? n : -1;
+}
+
 /** null when the bytes are not readable additions. */
 export function unpackAdditions(b: Uint8Array): PoolAddition[] | null {
-  if (b.length < ADDED_PREFIX) return null;
+  const n = additionsCount(b);
+  if (n < 0) return null;
   const v = new DataView(b.buffer, b.byteOffset, b.byteLength);
-  if (v.getUint32(0, true) !== ADDED_MAGIC || v.getUint32(4, true) !== ADDED_VERSION) return null;
-  const n = v.getUint32(8, true);
-  if (b.length !== ADDED_PREFIX + ADDED_ENTRY * n) return null;
   const out: PoolAddition[] = [];
   for (let i = 0, at = ADDED_PREFIX; i < n; i++, at += ADDED_ENTRY) out.push({ lead: v.getUint16(at, true), phase: v.getUint16(at + 2, true), residual: v.getFloat64(at + 4, true) });
   return out;
@@ -381,7 +388,8 @@ export class StateAdapter implements CycleState {
     if (added && base && base.horizon === pool.horizon && base.phases === pool.phases && base.capacityPerLead === pool.capacityPerLead && base.logCount + added.length <= additionsLimit(pool)) {
       if (added.length === 0) return;
       const before = base.logCount > 0 ? this.store.getStored(POOL_ADDED_KEY(series)) : undefined;
-      if (base.logCount === 0 || before instanceof Uint8Array) {
+      // The additions row must still be the one read with the pool (else: rewrite the whole pool).
+      if (base.logCount === 0 || (before instanceof Uint8Array && additionsCount(before) === base.logCount)) {
         this.store.setBytes(POOL_ADDED_KEY(series), packAdditions(added, before instanceof Uint8Array ? before : undefined), now);
         base.logCount += added.length;
         return;
