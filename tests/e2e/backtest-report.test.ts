@@ -10,55 +10,29 @@ import { promisify } from 'node:util';
 import { fileURLToPath } from 'node:url';
 import { tmpdir } from 'node:os';
 import path from 'node:path';
-import { chromium, type BrowserContext } from 'playwright-core';
 import { backtest, type BacktestResult } from '../../src/evaluate/backtest.ts';
 import { renderBacktestReport } from '../../src/evaluate/report.ts';
 import { hourlySettings, syntheticHourly } from '../unit/forecast/fixtures.ts';
+import { canvasInk, launchBrowser, openReport } from './browser.ts';
 
 const root = path.resolve(path.dirname(fileURLToPath(import.meta.url)), '../..');
 const run = promisify(execFile);
 
-async function inkedCanvases(file: string): Promise<{ drawn: number; inked: Array<{ n: number; total: number }>; errors: string[] }> {
-  const page = await context.newPage();
-  const errors: string[] = [];
-  page.on('pageerror', (e) => errors.push(e.message));
-  page.on('console', (m) => {
-    if (m.type() === 'error' || m.type() === 'warning') errors.push(m.text());
-  });
-  await page.goto(`file://${file}`);
-  await page.waitForFunction(() => typeof (window as unknown as { radcastChartsDrawn?: number }).radcastChartsDrawn === 'number');
-  const out = await page.evaluate(() => ({
-    drawn: (window as unknown as { radcastChartsDrawn: number }).radcastChartsDrawn,
-    inked: [...document.querySelectorAll('canvas')].map((c) => {
-      const px = c.getContext('2d')!.getImageData(0, 0, c.width, c.height).data;
-      let n = 0;
-      for (let i = 3; i < px.length; i += 4) if (px[i] > 0) n++;
-      return { n, total: c.width * c.height };
-    }),
-  }));
-  await page.close();
-  return { ...out, errors };
-}
-
 const HOSTILE = '<img src=x onerror="window.__pwned=1"></script><script>window.__pwned=2</script>&amp;';
 
 let dir: string;
-let context: BrowserContext;
+let browser: Awaited<ReturnType<typeof launchBrowser>>;
 let result: BacktestResult;
 
 beforeAll(async () => {
   dir = mkdtempSync(path.join(tmpdir(), 'radcast-report-'));
   const settings = hourlySettings({ series: HOSTILE, windowSteps: 24 * 14, fit: { nCentres: 8, restarts: 1 } });
   result = await backtest(syntheticHourly(24 * 30, 4, 1), {}, settings, { spanSteps: 24 * 5, everySteps: 24, workers: 0 });
-  context = await chromium.launchPersistentContext(path.join(dir, 'profile'), {
-    executablePath: '/usr/bin/chromium',
-    headless: true,
-    args: ['--headless', '--no-sandbox', '--disable-gpu', '--disable-quic', '--no-first-run', '--disable-background-networking', '--disable-component-update', '--disable-sync'],
-  });
+  browser = await launchBrowser();
 });
 
 afterAll(async () => {
-  await context?.close();
+  await browser?.close();
   if (dir) rmSync(dir, { recursive: true, force: true });
 });
 
@@ -67,31 +41,10 @@ describe('backtest report in headless Chromium', () => {
     const html = renderBacktestReport([result], { generatedAt: new Date(Date.UTC(2024, 5, 1)) });
     const file = path.join(dir, 'report.html');
     writeFileSync(file, html);
-    const page = await context.newPage();
-    const errors: string[] = [];
-    const requests: string[] = [];
-    page.on('pageerror', (e) => errors.push(e.message));
-    page.on('console', (m) => {
-      if (m.type() === 'error' || m.type() === 'warning') errors.push(m.text());
-    });
-    page.on('request', (r) => {
-      if (!r.url().startsWith('file:')) requests.push(r.url());
-    });
-    await page.goto(`file://${file}`);
-    await page.waitForFunction(() => typeof (window as unknown as { radcastChartsDrawn?: number }).radcastChartsDrawn === 'number');
+    const { page, errors, requests } = await openReport(browser.context, file);
+    const ink = await canvasInk(page);
     const info = await page.evaluate(() => {
-      const canvases = [...document.querySelectorAll('canvas')];
-      const inked = canvases.map((c) => {
-        const ctx = c.getContext('2d')!;
-        const px = ctx.getImageData(0, 0, c.width, c.height).data;
-        let n = 0;
-        for (let i = 3; i < px.length; i += 4) if (px[i] > 0) n++;
-        return { n, total: c.width * c.height };
-      });
       return {
-        drawn: (window as unknown as { radcastChartsDrawn: number }).radcastChartsDrawn,
-        canvases: canvases.length,
-        inked,
         pwned: (window as unknown as { __pwned?: number }).__pwned ?? null,
         images: document.querySelectorAll('img').length,
         scripts: document.querySelectorAll('script').length,
@@ -102,12 +55,10 @@ describe('backtest report in headless Chromium', () => {
     expect(errors).toEqual([]);
     expect(requests).toEqual([]);
     // 3 origin charts + error by lead + MASE per origin
-    expect(info.canvases).toBe(5);
-    expect(info.drawn).toBe(5);
-    for (const c of info.inked) {
-      // Axes, grid, lines and legend ink a few per cent of the canvas; a blank canvas has none.
-      expect(c.n).toBeGreaterThan(0.01 * c.total);
-    }
+    expect(ink.canvases.length).toBe(5);
+    expect(ink.drawn).toBe(5);
+    // Axes, grid, lines and legend ink a few per cent of the canvas; a blank canvas has none.
+    for (const c of ink.canvases) expect(c.share).toBeGreaterThan(0.01);
     expect(info.pwned).toBeNull();
     expect(info.images).toBe(0);
     expect(info.scripts).toBe(3);
@@ -147,10 +98,12 @@ describe('backtest report in headless Chromium', () => {
     expect(stderr).toContain('wrote the backtest report');
     // Not a terminal: no progress bar drawn into the captured stderr.
     expect(stderr).not.toMatch(/origins, .* left/);
-    const page = await inkedCanvases(report);
-    expect(page.errors).toEqual([]);
-    expect(page.drawn).toBe(5);
-    for (const c of page.inked) expect(c.n).toBeGreaterThan(0.01 * c.total);
+    const opened = await openReport(browser.context, report);
+    const drawn = await canvasInk(opened.page);
+    await opened.page.close();
+    expect(opened.errors).toEqual([]);
+    expect(drawn.drawn).toBe(5);
+    for (const c of drawn.canvases) expect(c.share).toBeGreaterThan(0.01);
     expect(readFileSync(report, 'utf8')).toContain('oskaveld-outdoor-temp');
     // The table form of the same run.
     const table = await run(process.execPath, [bin, 'backtest', '--config', cfg, '--workers', '0', '--span', '2d'], { cwd: dir });

@@ -12,7 +12,7 @@ import { buildCandidates, gridFor } from '../../src/evaluate/tune-grid.ts';
 import { tune, type TuneResult } from '../../src/evaluate/tune.ts';
 import { heatmapCells, renderTuneReport } from '../../src/evaluate/tune-report.ts';
 import { knownRbfConfig, knownRbfSeries } from '../unit/evaluate/tune-fixtures.ts';
-import { launchBrowser } from './browser.ts';
+import { canvasInk, launchBrowser, openReport } from './browser.ts';
 
 const HOSTILE = '<img src=x onerror="window.__pwned=1"></script><script>window.__pwned=2</script>';
 
@@ -41,29 +41,10 @@ describe('tune report in headless Chromium', () => {
     const html = renderTuneReport(result, { generatedAt: new Date(Date.UTC(2026, 0, 1)), snippet: 'window: 200\ncentres: 4\n' });
     const file = path.join(dir, 'tune.html');
     writeFileSync(file, html);
-    const page = await browser.context.newPage();
-    const errors: string[] = [];
-    const requests: string[] = [];
-    page.on('pageerror', (e) => errors.push(e.message));
-    page.on('console', (m) => {
-      if (m.type() === 'error' || m.type() === 'warning') errors.push(m.text());
-    });
-    page.on('request', (r) => {
-      if (!r.url().startsWith('file:')) requests.push(r.url());
-    });
-    await page.goto(`file://${file}`);
-    await page.waitForFunction(() => typeof (window as unknown as { radcastChartsDrawn?: number }).radcastChartsDrawn === 'number');
+    const { page, errors, requests } = await openReport(browser.context, file);
+    const ink = await canvasInk(page);
     const info = await page.evaluate(() => {
-      const canvases = [...document.querySelectorAll('canvas')];
       return {
-        drawn: (window as unknown as { radcastChartsDrawn: number }).radcastChartsDrawn,
-        ids: canvases.map((c) => c.id),
-        inked: canvases.map((c) => {
-          const px = c.getContext('2d')!.getImageData(0, 0, c.width, c.height).data;
-          let n = 0;
-          for (let i = 3; i < px.length; i += 4) if (px[i] > 0) n++;
-          return n / (c.width * c.height);
-        }),
         pwned: (window as unknown as { __pwned?: number }).__pwned ?? null,
         images: document.querySelectorAll('img').length,
         heading: document.querySelector('h2')?.textContent ?? '',
@@ -73,11 +54,11 @@ describe('tune report in headless Chromium', () => {
     });
     expect(errors).toEqual([]);
     expect(requests).toEqual([]);
-    expect(info.ids).toEqual(['heatmap', 'lead', 'origins']);
-    expect(info.drawn).toBe(3);
+    expect(ink.canvases.map((c) => c.id)).toEqual(['heatmap', 'lead', 'origins']);
+    expect(ink.drawn).toBe(3);
     // The heatmap fills most of its canvas with cells; line charts ink a few per cent.
-    expect(info.inked[0]).toBeGreaterThan(0.3);
-    for (const share of info.inked.slice(1)) expect(share).toBeGreaterThan(0.01);
+    expect(ink.canvases[0].share).toBeGreaterThan(0.3);
+    for (const c of ink.canvases.slice(1)) expect(c.share).toBeGreaterThan(0.01);
     expect(info.pwned).toBeNull();
     expect(info.images).toBe(0);
     expect(info.heading).toBe(HOSTILE);
