@@ -3,6 +3,8 @@
  * (ISO instant) or option at fault, and a hint. Callers catch them per series / per origin.
  */
 
+import { SeriesScopedError, type SeriesScopedInit } from '../series/errors.ts';
+
 export type ForecastErrorCode =
   | 'BAD_SETTINGS'
   | 'ORIGIN_OUT_OF_RANGE'
@@ -12,45 +14,16 @@ export type ForecastErrorCode =
   | 'BAD_FITTED'
   | 'WORKER_FAILED';
 
-export interface ForecastErrorInit {
-  code: ForecastErrorCode;
-  series: string;
-  message: string;
-  hint: string;
-  at?: string;
-  field?: string;
-  details?: Record<string, number | string>;
-}
+export type ForecastErrorInit = SeriesScopedInit<ForecastErrorCode>;
 
-export class ForecastError extends Error {
-  readonly code: ForecastErrorCode;
-  readonly series: string;
-  readonly hint: string;
-  readonly at?: string;
-  readonly field?: string;
-  readonly details?: Record<string, number | string>;
-
+export class ForecastError extends SeriesScopedError<ForecastErrorCode> {
   constructor(init: ForecastErrorInit) {
-    const where = [`series=${init.series}`, init.at !== undefined ? `at=${init.at}` : '', init.field !== undefined ? `field=${init.field}` : '']
-      .filter((s) => s !== '')
-      .join(' ');
-    super(`${init.code} ${where}: ${init.message} (hint: ${init.hint})`);
-    this.name = 'ForecastError';
-    this.code = init.code;
-    this.series = init.series;
-    this.hint = init.hint;
-    if (init.at !== undefined) this.at = init.at;
-    if (init.field !== undefined) this.field = init.field;
-    if (init.details !== undefined) this.details = init.details;
+    super('ForecastError', init);
   }
 
   /** Worker crashes may pass on a retry; input problems do not. */
-  canRetry(): boolean {
+  override canRetry(): boolean {
     return this.code === 'WORKER_FAILED';
-  }
-
-  toJSON(): Record<string, unknown> {
-    return { name: this.name, code: this.code, series: this.series, at: this.at, field: this.field, hint: this.hint, details: this.details, message: this.message };
   }
 }
 

@@ -15,8 +15,9 @@ export type SeriesErrorCode =
   | 'MISSING_INPUT'
   | 'SCALER_MISMATCH';
 
-export interface SeriesErrorInit {
-  code: SeriesErrorCode;
+/** What every error scoped to one series carries (the code type differs per layer). */
+export interface SeriesScopedInit<C extends string> {
+  code: C;
   series: string;
   message: string;
   hint: string;
@@ -28,24 +29,26 @@ export interface SeriesErrorInit {
   details?: Record<string, number | string>;
 }
 
-export class SeriesError extends Error {
-  readonly code: SeriesErrorCode;
+export type SeriesErrorInit = SeriesScopedInit<SeriesErrorCode>;
+
+/**
+ * Base of the errors that belong to one series (series layer, forecast engine): the message reads
+ * "CODE series=… at=… field=…: text (hint: …)", and toJSON() keeps every field.
+ */
+export class SeriesScopedError<C extends string> extends Error {
+  readonly code: C;
   readonly series: string;
   readonly hint: string;
   readonly at?: string;
   readonly field?: string;
   readonly details?: Record<string, number | string>;
 
-  constructor(init: SeriesErrorInit) {
-    const where = [
-      `series=${init.series}`,
-      init.at !== undefined ? `at=${init.at}` : '',
-      init.field !== undefined ? `field=${init.field}` : '',
-    ]
+  constructor(name: string, init: SeriesScopedInit<C>) {
+    const where = [`series=${init.series}`, init.at !== undefined ? `at=${init.at}` : '', init.field !== undefined ? `field=${init.field}` : '']
       .filter((s) => s !== '')
       .join(' ');
     super(`${init.code} ${where}: ${init.message} (hint: ${init.hint})`);
-    this.name = 'SeriesError';
+    this.name = name;
     this.code = init.code;
     this.series = init.series;
     this.hint = init.hint;
@@ -60,16 +63,13 @@ export class SeriesError extends Error {
   }
 
   toJSON(): Record<string, unknown> {
-    return {
-      name: this.name,
-      code: this.code,
-      series: this.series,
-      at: this.at,
-      field: this.field,
-      hint: this.hint,
-      details: this.details,
-      message: this.message,
-    };
+    return { name: this.name, code: this.code, series: this.series, at: this.at, field: this.field, hint: this.hint, details: this.details, message: this.message };
+  }
+}
+
+export class SeriesError extends SeriesScopedError<SeriesErrorCode> {
+  constructor(init: SeriesErrorInit) {
+    super('SeriesError', init);
   }
 }
 
