@@ -3,7 +3,7 @@
  * start, fitAt, forecastAt, pack the fitted forecaster for the state store; each part timed. Pure
  * computation on the data in the request, so the main thread never parses or serialises a model.
  */
-import { decodeFittedForecaster, encodeFittedForecaster, fitAt, forecastAt, type FittedForecaster, type HoldoutResiduals } from '../forecast/engine.ts';
+import { decodeFittedForecaster, encodeFittedForecaster, fitAt, forecastAt, noveltyAt, type FittedForecaster, type HoldoutResiduals } from '../forecast/engine.ts';
 import type { FitRequest, FitResult } from './ports.ts';
 
 /** A fit result that carries the decoded forecaster too (inline fits). */
@@ -32,14 +32,13 @@ export function runFitTask(req: FitRequest, now: () => number = () => performanc
   const forecast = forecastAt(fitted, req.target, req.exo, req.settings, req.originIndex);
   // Novelty of the inputs at the steps before the origin, with the model just fitted: the
   // drift layer's novelty share then covers every recent step, whatever the refit schedule.
+  // One batched prediction; an input that cannot be built (a gap) has no novelty, the others still count.
+  const back: number[] = [];
+  for (let k = Math.min(req.noveltySteps ?? 0, req.originIndex) - 1; k >= 1; k--) back.push(req.originIndex - k);
   const recentNovelty: Array<{ t: number; activation: number }> = [];
-  for (let k = Math.min(req.noveltySteps ?? 0, req.originIndex) - 1; k >= 1; k--) {
-    try {
-      recentNovelty.push({ t: req.target.startMs + (req.originIndex - k) * req.target.stepMs, activation: forecastAt(fitted, req.target, req.exo, req.settings, req.originIndex - k).novelty });
-    } catch {
-      // An input that cannot be built (a gap) has no novelty; the others still count.
-    }
-  }
+  noveltyAt(fitted, req.target, req.exo, req.settings, back).forEach((activation, i) => {
+    if (activation !== null) recentNovelty.push({ t: req.target.startMs + back[i] * req.target.stepMs, activation });
+  });
   const t2 = now();
   const stored = encodeFittedForecaster(fitted);
   const t3 = now();

@@ -379,6 +379,34 @@ export function forecastAt(fitted: FittedForecaster, target: RegularSeries, exo:
   return { originIndex, originMs, targetTimes: input.targetTimes, values, novelty: pred.novelty[0], imputed: input.imputed };
 }
 
+/**
+ * Novelty (largest Gaussian activation) of the inputs at several origins with one fitted
+ * forecaster, in one prediction: the same values forecastAt would give one by one. An origin
+ * whose input cannot be built (a gap) gets null.
+ */
+export function noveltyAt(fitted: FittedForecaster, target: RegularSeries, exo: Record<string, RegularSeries>, settings: ForecastSettings, originIndices: readonly number[]): Array<number | null> {
+  const H = settings.features.horizon;
+  const d = fitted.model.nFeatures;
+  const rowsOk: number[] = [];
+  const x = new Float64Array(originIndices.length * d);
+  originIndices.forEach((originIndex, i) => {
+    try {
+      checkOrigin(target, settings, originIndex);
+      const originMs = target.startMs + originIndex * target.stepMs;
+      const input = buildForecastInput(cutAtIndex(target, originIndex), cutExo(exo, settings, originMs, H * target.stepMs), settings.features, fitted.scaler, originIndex);
+      x.set(input.x, rowsOk.length * d);
+      rowsOk.push(i);
+    } catch {
+      // no input at this origin
+    }
+  });
+  const out: Array<number | null> = originIndices.map(() => null);
+  if (rowsOk.length === 0) return out;
+  const pred = predictRbf(fitted.model, { data: x.subarray(0, rowsOk.length * d), rows: rowsOk.length, cols: d });
+  rowsOk.forEach((i, r) => (out[i] = pred.novelty[r]));
+  return out;
+}
+
 /** Checks a FittedForecaster read back from JSON (shape and model); throws BAD_FITTED. */
 export function parseFittedForecaster(json: string | unknown, series = '(unnamed)'): FittedForecaster {
   let v: unknown = json;

@@ -1,6 +1,6 @@
 import { describe, expect, it } from 'vitest';
 import fc from 'fast-check';
-import { fitAt, forecastAt, parseFittedForecaster, settingsKey, AUTO_CANDIDATES, decodeFittedForecaster, encodeFittedForecaster, isPackedForecaster, type FittedForecaster, type HoldoutResiduals } from '../../../src/forecast/engine.ts';
+import { fitAt, forecastAt, noveltyAt, parseFittedForecaster, settingsKey, AUTO_CANDIDATES, decodeFittedForecaster, encodeFittedForecaster, isPackedForecaster, type FittedForecaster, type HoldoutResiduals } from '../../../src/forecast/engine.ts';
 import type { RegularSeries } from '../../../src/series/types.ts';
 import { HOUR, hourlySettings, syntheticHourly } from './fixtures.ts';
 
@@ -28,6 +28,26 @@ describe('fitAt / forecastAt', () => {
     expect(f.originMs).toBe(series.startMs + origin * HOUR);
     expect(f.trainToMs).toBeLessThanOrEqual(f.originMs - 24 * HOUR);
     expect(f.fitMs).toBeGreaterThanOrEqual(0);
+  });
+
+  it('noveltyAt equals forecastAt novelty origin by origin, and gives null where the input has a gap', () => {
+    const f = fitAt(series, {}, settings, origin);
+    const values = series.values.slice();
+    values[origin - 30] = Number.NaN; // a gap: the lag-1 input of origin - 29 is missing
+    const gappy = withValues(series, values);
+    const origins = Array.from({ length: 23 }, (_, i) => origin - 40 + i);
+    const batch = noveltyAt(f, gappy, {}, settings, origins);
+    origins.forEach((o, i) => {
+      let one: number | null = null;
+      try {
+        one = forecastAt(f, gappy, {}, settings, o).novelty;
+      } catch {
+        one = null;
+      }
+      expect(batch[i]).toBe(one);
+    });
+    expect(batch.some((v) => v === null)).toBe(true);
+    expect(batch.filter((v) => v !== null).length).toBeGreaterThan(5);
   });
 
   it('no leakage: any change after the origin leaves the fit and the forecast unchanged', () => {
