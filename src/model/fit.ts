@@ -28,6 +28,7 @@ export const DEFAULT_FIT_OPTIONS: Readonly<Required<Omit<FitOptions, 'warmStart'
   kmeansTol: 1e-4,
   warmMaxPasses: 3,
   warmWidthIterations: 1,
+  warmWidthRest: 8,
   refitAllRows: true,
   ridgeSearch: true,
 });
@@ -70,6 +71,7 @@ function resolveOptions(opts: FitOptions): Required<Omit<FitOptions, 'warmStart'
   checkNumber(o.kmeansTol, 'opts.kmeansTol', 0, Infinity);
   checkInt(o.warmMaxPasses, 'opts.warmMaxPasses', 1);
   checkInt(o.warmWidthIterations, 'opts.warmWidthIterations', 0, 10000);
+  checkInt(o.warmWidthRest, 'opts.warmWidthRest', 0, 1000);
   if (typeof o.bias !== 'boolean') throw new ModelError('BAD_OPTION', 'bias must be true or false', { where: 'opts.bias', value: String(o.bias) }, 'set bias to a boolean');
   if (typeof o.ridgeSearch !== 'boolean') throw new ModelError('BAD_OPTION', 'ridgeSearch must be true or false', { where: 'opts.ridgeSearch', value: String(o.ridgeSearch) }, 'set ridgeSearch to a boolean');
   if (typeof o.refitAllRows !== 'boolean') throw new ModelError('BAD_OPTION', 'refitAllRows must be true or false', { where: 'opts.refitAllRows', value: String(o.refitAllRows) }, 'set refitAllRows to a boolean');
@@ -355,7 +357,9 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
   const searchGrid = near.includes(largest) ? near : [...near, largest];
   // A warm start begins from widths tuned by earlier fits: a few steps per refit keep tracking
   // them, so the alternation is spread over the chain of refits.
-  const widthIterations = warm ? Math.min(o.widthIterations, o.warmWidthIterations) : o.widthIterations;
+  // A warm start whose widths are resting after convergence keeps them (no width step this time).
+  const resting = warm !== undefined && o.warmWidthRest > 0 && (warm.widthRest ?? 0) > 0;
+  const widthIterations = resting ? 0 : warm ? Math.min(o.widthIterations, o.warmWidthIterations) : o.widthIterations;
   const evaluate = (g: Float64Array, e: Float64Array, searchRidge: boolean): State => {
     const ePr = products(e, K, true, fy, nFY);
     const gTrain = assemble(ePr.train, fProd.train);
@@ -380,6 +384,8 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
   const history: FitHistoryEntry[] = [{ iteration: 0, trainMse: cur.trainMse, validationMse: cur.valMse, accepted: true }];
   let step = FIRST_LOG_STEP;
   let spare: Float64Array = new Float64Array(nSamples * K);
+  /** The alternation stopped because it converged (not because it ran out of iterations). */
+  let converged = false;
 
   for (let it = 1; it <= widthIterations; it++) {
     // Residuals of the current weights on the training rows: base = Y - F W_F, r = base - E W_E.
@@ -397,7 +403,10 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     } else grad.set(gk);
     let gmax = 0;
     for (let k = 0; k < K; k++) gmax = Math.max(gmax, Math.abs(grad[k]));
-    if (!(gmax > 0)) break;
+    if (!(gmax > 0)) {
+      converged = true;
+      break;
+    }
     const slope = o.widthMode === 'shared' ? grad[0] * grad[0] : grad.reduce((a, v) => a + v * v, 0);
     // f0 from the same residuals as the trials (not the normal-equation form), so the Armijo
     // test compares like with like.
@@ -424,18 +433,37 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
       }
       t /= 2;
     }
-    if (cand === null) break;
+    if (cand === null) {
+      converged = true;
+      break;
+    }
     // Weights re-solved exactly for the new widths; the step stands only if validation improves.
     // The accepted trial left the training rows' activations in `spare`; add the tail's.
     const next = evaluate(cand, activations(cand, nTrain, nSamples, spare), false);
     const accepted = judge(next) <= judge(cur);
     history.push({ iteration: it, trainMse: next.trainMse, validationMse: next.valMse, accepted });
-    if (!accepted) break;
+    if (!accepted) {
+      converged = true;
+      break;
+    }
     const rel = judge(cur) > 0 ? (judge(cur) - judge(next)) / judge(cur) : 0;
     spare = cur.e;
     cur = next;
     step = Math.min(2 * t, 2 * FIRST_LOG_STEP);
-    if (rel < o.widthTol) break;
+    if (rel < o.widthTol) {
+      converged = true;
+      break;
+    }
+  }
+  // Rest schedule of the widths for the next warm refits (see FitOptions.warmWidthRest).
+  let widthRest = 0;
+  let widthRestLength = 0;
+  if (resting) {
+    widthRest = (warm.widthRest ?? 1) - 1;
+    widthRestLength = warm.widthRestLength ?? 1;
+  } else if (converged && widthIterations > 0 && o.warmWidthRest > 0) {
+    widthRestLength = Math.min(o.warmWidthRest, Math.max(1, 2 * (warm?.widthRestLength ?? 0)));
+    widthRest = widthRestLength;
   }
 
   // Final weights for the chosen widths (all rows when refitAllRows), with one round of
@@ -484,6 +512,10 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     seed: o.seed,
     gaussianRidge,
   };
+  if (widthRest > 0 || widthRestLength > 0) {
+    model.widthRest = widthRest;
+    model.widthRestLength = widthRestLength;
+  }
   const report: FitReport = {
     kmeansPasses: km.passes,
     inertia: km.inertia,
@@ -495,6 +527,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
     warmStarted: warm !== undefined,
     gaussianRidge,
     ridgeRaised,
+    widthsRested: resting,
   };
   return { model, report };
 }

@@ -68,6 +68,9 @@ export function checkModel(m: RbfModel, where = 'model'): void {
   if (m.gaussianRidge !== undefined && !(typeof m.gaussianRidge === 'number' && m.gaussianRidge >= 0 && Number.isFinite(m.gaussianRidge))) {
     bad('must be a non-negative number', 'gaussianRidge', String(m.gaussianRidge));
   }
+  for (const f of ['widthRest', 'widthRestLength'] as const) {
+    if (m[f] !== undefined && !(Number.isInteger(m[f]) && (m[f] as number) >= 0 && (m[f] as number) <= 1_000)) bad('must be a whole number in 0..1000', f, String(m[f]));
+  }
   arr('centres', m.nCentres * m.nFeatures, false);
   arr('gammas', m.nCentres, true);
   arr('weights', (1 + m.nCentres + (m.linearTerms ? m.nFeatures : 0)) * m.nOutputs, false);

@@ -38,6 +38,8 @@ export function parseModel(json: string): RbfModel {
     seed: m.seed,
   };
   if (m.gaussianRidge !== undefined) out.gaussianRidge = m.gaussianRidge;
+  if (m.widthRest !== undefined) out.widthRest = m.widthRest;
+  if (m.widthRestLength !== undefined) out.widthRestLength = m.widthRestLength;
   if (m.meta !== undefined) {
     if (m.meta === null || typeof m.meta !== 'object' || Array.isArray(m.meta)) {
       throw new ModelError('BAD_MODEL', 'meta must be an object', { where: 'model.meta' }, 'store metadata as a JSON object');

@@ -79,6 +79,14 @@ export interface FitOptions {
   warmMaxPasses?: number;
   /** Width iterations allowed on a warm start (its widths were tuned by earlier fits). Default 1. */
   warmWidthIterations?: number;
+  /**
+   * Longest rest of the widths on warm starts: after a fit whose alternation converged (its last
+   * width step was rejected, failed the line search or improved by less than widthTol), that many
+   * following warm refits keep the widths and skip the width step: 1 after the first convergence,
+   * doubling with each further one up to this bound; an accepted, still-improving step ends the
+   * rest. 0 = try a width step on every warm refit. Default 8.
+   */
+  warmWidthRest?: number;
   /** After choosing widths on the validation tail, solve the final weights on all rows. Default true. */
   refitAllRows?: boolean;
   /**
@@ -105,6 +113,10 @@ export interface RbfModel {
   seed: number;
   /** Relative ridge of the Gaussian weights chosen by the fit (a warm start searches near it). */
   gaussianRidge?: number;
+  /** Warm refits from this model that keep the widths without a width step (see FitOptions.warmWidthRest). */
+  widthRest?: number;
+  /** Length of the current rest (doubles while the alternation keeps converging). */
+  widthRestLength?: number;
   /** Optional metadata set by callers (training span, feature scaling...). */
   meta?: Record<string, unknown>;
 }
@@ -132,6 +144,8 @@ export interface FitReport {
   gaussianRidge: number;
   /** The solve was singular at the asked ridge and the penalty was raised to make it definite. */
   ridgeRaised: boolean;
+  /** A warm start kept the previous widths without a width step (they are resting after convergence). */
+  widthsRested: boolean;
 }
 
 export interface Prediction {

@@ -192,6 +192,40 @@ describe('warm start', () => {
     const other = fitRbf(a.x, a.y, opts({ nCentres: 8 })).model;
     expect(fitRbf(b.x, b.y, { ...o, warmStart: other }).report.warmStarted).toBe(false);
   });
+
+  it('after the alternation converges the widths rest for 1, 2, 4 ... warm refits (at most warmWidthRest), then are tried again', () => {
+    const v = wavySeries(1400, 5);
+    const o = opts({ nCentres: 12, warmWidthRest: 4 });
+    // A chain of daily refits on a window sliding one day at a time.
+    const windowAt = (day: number) => lagSamples(v, 8, 24, 8 + 24 * day, 608 + 24 * day);
+    let prev = fitRbf(windowAt(0).x, windowAt(0).y, o);
+    const chain: Array<{ rested: boolean; rest: number; length: number; steps: number }> = [];
+    for (let day = 1; day <= 20; day++) {
+      const w = windowAt(day);
+      const r = fitRbf(w.x, w.y, { ...o, warmStart: prev.model });
+      chain.push({ rested: r.report.widthsRested, rest: r.model.widthRest ?? 0, length: r.model.widthRestLength ?? 0, steps: r.report.history.length - 1 });
+      // A resting refit keeps the widths exactly and runs no width step.
+      if (r.report.widthsRested) {
+        expect(r.model.gammas).toEqual(prev.model.gammas);
+        expect(r.report.history.length).toBe(1);
+      }
+      // Every refit, resting or not, still has finite validation error no worse than its start.
+      expect(r.report.history.at(-1)!.validationMse).toBeLessThanOrEqual(r.report.history[0].validationMse);
+      prev = r;
+    }
+    // The cold fit's alternation converged: its first warm refit rests.
+    expect(chain[0].rested).toBe(true);
+    // Rest lengths never exceed the bound, and a resting refit counts its rest down by one.
+    for (const c of chain) expect(c.length).toBeLessThanOrEqual(4);
+    for (let i = 1; i < chain.length; i++) if (chain[i].rested) expect(chain[i].rest).toBe(chain[i - 1].rest - 1);
+    // Width steps are still tried between rests, and rests grow while the alternation keeps converging.
+    expect(chain.some((c) => !c.rested && c.steps >= 1)).toBe(true);
+    expect(Math.max(...chain.map((c) => c.length))).toBeGreaterThanOrEqual(2);
+    // warmWidthRest: 0 turns the rest off: every warm refit tries a width step.
+    const off = fitRbf(windowAt(1).x, windowAt(1).y, { ...o, warmWidthRest: 0, warmStart: fitRbf(windowAt(0).x, windowAt(0).y, o).model });
+    expect(off.report.widthsRested).toBe(false);
+    expect(off.report.history.length).toBeGreaterThanOrEqual(2);
+  });
 });
 
 describe('bad input', () => {
