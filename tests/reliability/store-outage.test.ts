@@ -48,7 +48,7 @@ function daemonDoc(dir: string, store: Record<string, unknown>) {
 }
 
 /** Runs the cycles: 2 normal, 1 during which the server is killed after the first read, 1 with the server down, restart, 2 normal. */
-async function outageScenario(d: ClockedDaemon, store: HookedStore, server: TestServer, killMidCycle: () => Promise<void>) {
+async function outageScenario(d: ClockedDaemon, store: HookedStore, server: TestServer, killMidCycle: () => Promise<void>, writeRetries: () => number) {
   const ready = async () => (await d.get('/readyz')).status === 200;
   expect(await until(ready, 5000)).toBe(true);
   await d.hour();
@@ -83,6 +83,9 @@ async function outageScenario(d: ClockedDaemon, store: HookedStore, server: Test
   await d.hour(); // the whole cycle with the server down
   expect((await d.get('/healthz')).status).toBe(200);
   const duringOutage = store.forecasts.length;
+  // The buffered points meet the dead server at least once before it comes back (their flush timer
+  // is real time, 100 ms; on a loaded machine it could otherwise fire only after the restart).
+  expect(await until(() => writeRetries() > 0, 10_000), 'a write was attempted and failed while the server was down').toBe(true);
 
   await server.restart();
   expect(await until(ready, 10_000), '/readyz ready again after the restart').toBe(true);
@@ -120,7 +123,7 @@ describe('InfluxDB 1.x killed mid-cycle and restarted', () => {
     const d = await startClockedDaemon({ loaded, logger: cap.logger, startMs: BASE + 4 * 60_000, store });
     cleanups.push(() => d.daemon.stop());
 
-    const { atKill, duringOutage } = await outageScenario(d, store, influx, () => influx.kill());
+    const { atKill, duringOutage } = await outageScenario(d, store, influx, () => influx.kill(), () => inner.stats().retries);
     // Reads failed while the server was down, and each failure was counted with its code.
     expect(store.readsFailed).toBeGreaterThanOrEqual(SERIES.length);
     const metrics = (await d.get('/metrics')).text;
@@ -195,7 +198,7 @@ describe('VictoriaMetrics killed mid-cycle and restarted (v2 write path)', () =>
       await inner.flush();
       await (await fetch(`${vm.url}/snapshot/create`)).arrayBuffer();
       await vm.kill();
-    });
+    }, () => inner.stats().retries);
     // Reads kept working (embedded), so cycles went on forecasting during the outage.
     expect(duringOutage).toBe(atKill + SERIES.length);
     expect(inner.stats()).toMatchObject({ buffered: 0, dropped: 0, rejected: 0, failing: false });
