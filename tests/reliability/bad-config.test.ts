@@ -174,12 +174,14 @@ describe('config loading never crashes', () => {
 
   it('YAML bombs (alias expansion) are refused, not expanded', () => {
     const bomb = ['a: &a ["x","x","x","x","x","x","x","x","x"]', ...Array.from({ length: 8 }, (_, i) => `${String.fromCharCode(98 + i)}: &${String.fromCharCode(98 + i)} [*${String.fromCharCode(97 + i)},*${String.fromCharCode(97 + i)},*${String.fromCharCode(97 + i)},*${String.fromCharCode(97 + i)},*${String.fromCharCode(97 + i)},*${String.fromCharCode(97 + i)},*${String.fromCharCode(97 + i)},*${String.fromCharCode(97 + i)},*${String.fromCharCode(97 + i)}]`), 'series: [{name: a}]'].join('\n');
-    const t0 = performance.now();
     const r = load(() => parseConfigText(bomb, { baseDir: tmpdir() }));
+    // Expanded, the document would be valid YAML (9^9 strings, minutes and gigabytes); it is refused
+    // as a YAML problem instead, so the aliases were never expanded.
     expect(r.ok).toBe(false);
-    if (!r.ok) expect(r.issues.map((i) => i.code)).toEqual(['CONFIG_YAML']);
-    // 9^9 strings would take minutes and gigabytes; a refusal is immediate (generous bound).
-    expect(performance.now() - t0).toBeLessThan(5000);
+    if (!r.ok) {
+      expect(r.issues.map((i) => i.code)).toEqual(['CONFIG_YAML']);
+      expect(r.issues[0].message).toMatch(/alias/i);
+    }
   });
 });
 
