@@ -14,14 +14,12 @@ import { parseConfigObject } from '../../src/config/load.ts';
 import { regularize, lastValueIndex } from '../../src/series/index.ts';
 import { InlineFitter, PoolFitter } from '../../src/daemon/pool.ts';
 import type { FitRequest } from '../../src/daemon/ports.ts';
+import { numberFlag } from '../args.ts';
+import { mulberry32 } from '../../src/model/random.ts';
 
 const HOUR = 3_600_000;
 
-function arg(argv: string[], name: string, fallback: number): number {
-  const i = argv.indexOf(`--${name}`);
-  return i >= 0 ? Number(argv[i + 1]) : fallback;
-}
-
+/** Median (mean of the two middle values for an even count; NaN when empty). */
 function median(a: number[]): number {
   const s = [...a].sort((x, y) => x - y);
   return s.length ? (s.length % 2 ? s[s.length >> 1] : (s[s.length / 2 - 1] + s[s.length / 2]) / 2) : NaN;
@@ -29,13 +27,7 @@ function median(a: number[]): number {
 
 /** Invented hourly load with daily and weekly shape (seeded by k). */
 function readings(k: number, fromMs: number, n: number) {
-  let a = 0x9e3779b9 ^ k;
-  const rnd = () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = Math.imul(a ^ (a >>> 15), a | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
+  const rnd = mulberry32(0x9e3779b9 ^ k);
   const out = [];
   for (let i = 0; i < n; i++) {
     const t = fromMs + i * HOUR;
@@ -47,8 +39,8 @@ function readings(k: number, fromMs: number, n: number) {
 }
 
 export async function run(argv: string[]): Promise<void> {
-  const n = arg(argv, 'series', 40);
-  const threads = arg(argv, 'threads', Math.min(2, os.availableParallelism()));
+  const n = numberFlag(argv, '--series', 40);
+  const threads = numberFlag(argv, '--threads', Math.min(2, os.availableParallelism()));
   const r = parseConfigObject({
     defaults: { window: '8w', centres: 32, lags: ['1-16', 24, 168], horizon: 24, timeZone: 'Europe/Berlin', calendar: { holidays: { country: 'DE' } } },
     series: [{ name: 'bench' }],

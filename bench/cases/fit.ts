@@ -17,21 +17,13 @@ import { fileURLToPath } from 'node:url';
 import { DEFAULT_FIT_OPTIONS, fitRbf } from '../../src/model/index.ts';
 import type { Dense, FitOptions } from '../../src/model/types.ts';
 import { distanceKernels } from '../../src/model/distance.ts';
+import { flagValue, median } from '../args.ts';
+import { mulberry32 } from '../../src/model/random.ts';
 
 const H = 24;
 const here = path.dirname(fileURLToPath(import.meta.url));
 const refDir = path.resolve(here, '..', '..', '..', 'shared', 'reference');
 const python = '/usr/bin/python3';
-
-function flag(argv: string[], name: string): string | undefined {
-  const i = argv.indexOf(name);
-  return i >= 0 ? argv[i + 1] : undefined;
-}
-
-function median(v: number[]): number {
-  const s = [...v].sort((a, b) => a - b);
-  return s[Math.floor(s.length / 2)];
-}
 
 function load(file: string, cols: number): Dense {
   const b = readFileSync(file);
@@ -45,13 +37,7 @@ function rows(m: Dense, r0: number, r1: number): Dense {
 
 /** Same recipe as gen_data.py (AR(1) noise from mulberry32 instead of numpy) when python is missing. */
 function jsData(N: number, d: number): { x: Dense; y: Dense } {
-  let s = 12345 >>> 0;
-  const rnd = (): number => {
-    s = (s + 0x6d2b79f5) >>> 0;
-    let t = Math.imul(s ^ (s >>> 15), s | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
+  const rnd = mulberry32(12345);
   const gauss = (): number => Math.sqrt(-2 * Math.log(1 - rnd())) * Math.cos(2 * Math.PI * rnd());
   const L = d - 4;
   const T = N + 40 + H + 1;
@@ -139,8 +125,8 @@ function pad(s: string | number, w: number): string {
 
 export async function run(argv: string[]): Promise<void> {
   const quick = argv.includes('--quick');
-  const runs = Number(flag(argv, '--runs') ?? (quick ? 3 : 5));
-  const refMode = argv.includes('--no-ref') ? 'none' : (flag(argv, '--ref') ?? 'sklearn');
+  const runs = Number(flagValue(argv, '--runs') ?? (quick ? 3 : 5));
+  const refMode = argv.includes('--no-ref') ? 'none' : (flagValue(argv, '--ref') ?? 'sklearn');
   const grid: [number, number, number][] = quick
     ? [[1344, 40, 32], [8760, 40, 64]]
     : [1344, 8760].flatMap((N) => [16, 40].flatMap((d) => [16, 32, 64, 128].map((K) => [N, d, K] as [number, number, number])));

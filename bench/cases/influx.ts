@@ -8,13 +8,9 @@
 import { startInflux1, startVictoria } from '../../tests/helpers/servers.ts';
 import { createInfluxStore, type InfluxStore } from '../../src/store/influx/index.ts';
 import type { ForecastBatch } from '../../src/store/types.ts';
+import { median } from '../args.ts';
 
 const H = 3_600_000;
-
-function median(v: number[]): number {
-  const s = [...v].sort((a, b) => a - b);
-  return s[Math.floor(s.length / 2)]!;
-}
 
 function batches(nSeries: number, issuedAt: number): ForecastBatch[] {
   return Array.from({ length: nSeries }, (_, k) => ({

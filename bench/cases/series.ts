@@ -8,41 +8,21 @@
  *   npm run bench -- series [--series N] [--runs R]
  */
 import { buildForecastInput, buildSamples, regularize, zoneClock, type FeatureOptions, type Reading } from '../../src/series/index.ts';
+import { median, numberFlag } from '../args.ts';
+import { mulberry32 } from '../../src/model/random.ts';
 
 const HOUR = 3_600_000;
 
-function flag(argv: string[], name: string, dflt: number): number {
-  const i = argv.indexOf(name);
-  return i >= 0 ? Number(argv[i + 1]) : dflt;
-}
-
-function median(v: number[]): number {
-  const s = [...v].sort((a, b) => a - b);
-  return s[Math.floor(s.length / 2)];
-}
-
-/** mulberry32, so runs are comparable */
-function rng(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
 export async function run(argv: string[]): Promise<void> {
-  const nSeries = flag(argv, '--series', 1000);
-  const runs = flag(argv, '--runs', 3);
+  const nSeries = numberFlag(argv, '--series', 1000);
+  const runs = numberFlag(argv, '--runs', 3);
   const nSamples = 1400;
   const H = 24;
   const lookback = 168;
   const nSteps = nSamples + lookback + H - 1;
   const endMs = Date.UTC(2026, 3, 1); // spans the 2026-03-29 DST change and Easter
   const startMs = endMs - (nSteps + H) * HOUR;
-  const rand = rng(7);
+  const rand = mulberry32(7);
   const mk = (level: number): Reading[] => {
     const r: Reading[] = [];
     for (let i = 0; i < nSteps; i++) {

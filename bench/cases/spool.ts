@@ -16,19 +16,15 @@ import { SqliteSpool } from '../../src/store/spool.ts';
 import { forecastLines, healthLines, scoreLines } from '../../src/store/influx/schema.ts';
 import { INFLUX_DEFAULTS } from '../../src/store/influx/options.ts';
 import type { SpooledLine } from '../../src/store/influx/spool.ts';
+import { median, numberFlag } from '../args.ts';
 
 const HOUR = 3_600_000;
-const flag = (argv: string[], name: string, dflt: number) => {
-  const i = argv.indexOf(name);
-  return i >= 0 ? Number(argv[i + 1]) : dflt;
-};
-const median = (v: number[]) => [...v].sort((a, b) => a - b)[Math.floor(v.length / 2)];
 
 export async function run(argv: string[]): Promise<void> {
-  const nSeries = flag(argv, '--series', 1000);
-  const horizon = flag(argv, '--horizon', 24);
-  const cycles = flag(argv, '--cycles', 3);
-  const batchSize = flag(argv, '--batch', INFLUX_DEFAULTS.batchSize);
+  const nSeries = numberFlag(argv, '--series', 1000);
+  const horizon = numberFlag(argv, '--horizon', 24);
+  const cycles = numberFlag(argv, '--cycles', 3);
+  const batchSize = numberFlag(argv, '--batch', INFLUX_DEFAULTS.batchSize);
   const dir = mkdtempSync(join(tmpdir(), 'radcast-bench-spool-'));
   const path = join(dir, 'state.db');
   const spool = new SqliteSpool({ path, target: 'influxdb-v1 http://127.0.0.1:8086 db=bench rp=' });

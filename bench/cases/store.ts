@@ -12,18 +12,14 @@ import { join } from 'node:path';
 import { EmbeddedStore } from '../../src/store/embedded.ts';
 import { StateStore } from '../../src/store/state.ts';
 import type { ForecastBatch } from '../../src/store/types.ts';
+import { median, numberFlag } from '../args.ts';
 
 const HOUR = 3_600_000;
-const flag = (argv: string[], name: string, dflt: number) => {
-  const i = argv.indexOf(name);
-  return i >= 0 ? Number(argv[i + 1]) : dflt;
-};
-const median = (v: number[]) => [...v].sort((a, b) => a - b)[Math.floor(v.length / 2)];
 
 export async function run(argv: string[]): Promise<void> {
-  const nSeries = flag(argv, '--series', 1000);
-  const horizon = flag(argv, '--horizon', 24);
-  const runs = flag(argv, '--runs', 3);
+  const nSeries = numberFlag(argv, '--series', 1000);
+  const horizon = numberFlag(argv, '--horizon', 24);
+  const runs = numberFlag(argv, '--runs', 3);
   const dir = mkdtempSync(join(tmpdir(), 'radcast-bench-store-'));
   const store = new EmbeddedStore({ path: join(dir, 'radcast.db') });
   const state = new StateStore({ path: join(dir, 'state.db') });

@@ -21,27 +21,13 @@ import path from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { DEFAULT_FIT_OPTIONS, fitRbf, predictRbf } from '../../src/model/index.ts';
 import { buildForecastInput, buildSamples, CalendarEncoder, regularize, type FeatureOptions, type Reading, type RegularSeries, type TargetMode } from '../../src/series/index.ts';
+import { numberFlag } from '../args.ts';
+import { mulberry32 } from '../../src/model/random.ts';
 
 const HOUR = 3_600_000;
 const H = 24;
 const WINDOW = 1344;
 const MODES: TargetMode[] = ['absolute', 'level', 'seasonal'];
-
-function flag(argv: string[], name: string, dflt: number): number {
-  const i = argv.indexOf(name);
-  return i >= 0 ? Number(argv[i + 1]) : dflt;
-}
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
 
 function gauss(r: () => number): number {
   return Math.sqrt(-2 * Math.log(1 - r())) * Math.cos(2 * Math.PI * r());
@@ -141,7 +127,7 @@ function evaluate(d: Dataset, mode: TargetMode, every: number, linearTerms: bool
 
 export async function run(argv: string[]): Promise<void> {
   const quick = argv.includes('--quick');
-  const every = flag(argv, '--every', quick ? 169 : 49);
+  const every = numberFlag(argv, '--every', quick ? 169 : 49);
   const sets = [synthetic(true, 16), synthetic(false, 16), seattle()];
   console.log(`window ${WINDOW} steps, H ${H}, origins every ${every} steps, fit: DEFAULT_FIT_OPTIONS (K=${DEFAULT_FIT_OPTIONS.nCentres}, ${DEFAULT_FIT_OPTIONS.widthMode})`);
   console.log(['dataset', 'linear', 'targetMode', 'origins', 'MAE', 'RMSE', 'MAE/snaive', 'MAE lead 1', 'lead 12', 'lead 24'].join('\t'));

@@ -30,6 +30,8 @@ import { systemClock, type Clock } from '../../src/daemon/clock.ts';
 import { runFitTask } from '../../src/daemon/fit-task.ts';
 import type { Fitter } from '../../src/daemon/ports.ts';
 import { decodeFittedForecaster } from '../../src/forecast/engine.ts';
+import { median, stringFlag } from '../args.ts';
+import { mulberry32 } from '../../src/model/random.ts';
 
 const HOUR_MS = 3_600_000;
 /** Readings generated before the first cycle: window 8 w + longest lag 1 w + margin, rounded up. */
@@ -49,11 +51,6 @@ function gc(): void {
   }
 }
 
-function arg(argv: string[], name: string, fallback: string): string {
-  const i = argv.indexOf(`--${name}`);
-  return i >= 0 && argv[i + 1] !== undefined ? argv[i + 1] : fallback;
-}
-
 /** CPU time (ms) of the main thread from /proc (Linux); null elsewhere. Fields 14/15: utime, stime in clock ticks. */
 function mainThreadCpuMs(): number | null {
   try {
@@ -67,18 +64,6 @@ function mainThreadCpuMs(): number | null {
 }
 /** USER_HZ: 100 on Linux for every mainstream architecture (common practice; sysconf(_SC_CLK_TCK)). */
 const CLOCK_TICKS_PER_S = 100;
-
-/** mulberry32: small seeded PRNG so every run builds the same fleet. */
-function rng(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
 
 /** Outdoor temperature (°C) at hour index i: yearly and daily cycle plus weather noise. */
 function temperatureAt(i: number, noise: number): number {
@@ -105,7 +90,7 @@ interface Fleet {
 
 function buildFleet(n: number, store: EmbeddedStore, startMs: number): Fleet {
   const names = Array.from({ length: n }, (_, k) => `oskaveld-sub-${String(k).padStart(4, '0')}`);
-  const rand = rng(20_260_301);
+  const rand = mulberry32(20_260_301);
   const temps: number[] = [];
   const tempAt = (i: number) => {
     while (temps.length <= i) temps.push(temperatureAt(temps.length, (rand() - 0.5) * 2));
@@ -163,7 +148,6 @@ function configText(names: string[], dir: string, concurrency: number): string {
 }
 
 const fmt = (v: number, d = 0) => v.toFixed(d);
-const medianOf = (xs: number[]) => [...xs].sort((a, b) => a - b)[Math.floor(xs.length / 2)];
 const mib = (b: number) => (b / 2 ** 20).toFixed(0);
 
 interface CycleRow {
@@ -290,8 +274,7 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
     const warm = rows.slice(1);
     const cores = Math.max(1, workers);
     if (warm.length) {
-      const walls = warm.map((r) => r.summary.wallMs).sort((a, b) => a - b);
-      const median = walls[Math.floor(walls.length / 2)];
+      const wallMedian = median(warm.map((r) => r.summary.wallMs));
       const heapFirst = warm[0].heapAfterGc;
       const heapLast = warm.at(-1)!.heapAfterGc;
       const rssFirst = warm[0].rss;
@@ -301,14 +284,13 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
       const totals = STAGES.map((st) => warm.reduce((a, r) => a + r.summary.timings[st], 0));
       const all = totals.reduce((a, b) => a + b, 0);
       console.log(
-        `warm median: ${fmt(median / 1000, 2)} s per cycle, ${fmt((n * 1000) / median, 1)} series/s, ` +
-          `${fmt((n * 1000) / median / cores, 1)} series/s per core, ${fmt((median * cores) / n, 1)} core-ms per series`,
+        `warm median: ${fmt(wallMedian / 1000, 2)} s per cycle, ${fmt((n * 1000) / wallMedian, 1)} series/s, ` +
+          `${fmt((n * 1000) / wallMedian / cores, 1)} series/s per core, ${fmt((wallMedian * cores) / n, 1)} core-ms per series`,
       );
-      const cpus = warm.map((r) => r.cpuMs).sort((a, b) => a - b);
-      const cpuMedian = cpus[Math.floor(cpus.length / 2)];
+      const cpuMedian = median(warm.map((r) => r.cpuMs));
       console.log(
         `warm median CPU: ${fmt(cpuMedian / 1000, 2)} s per cycle = ${fmt(cpuMedian / n, 1)} CPU-ms per series ` +
-          `(main thread ${fmt(medianOf(warm.map((r) => r.mainCpuMs)) / n, 1)} of them) -> ${fmt((n * 1000) / cpuMedian, 1)} series per CPU-second; ` +
+          `(main thread ${fmt(median(warm.map((r) => r.mainCpuMs)) / n, 1)} of them) -> ${fmt((n * 1000) / cpuMedian, 1)} series per CPU-second; ` +
           `on ${cores} idle core(s) 1000 series would take ~${fmt(((cpuMedian / n) * 1000) / cores / 1000, 1)} s`,
       );
       console.log(`work split (warm cycles): ${STAGES.map((st, i) => `${st} ${fmt((100 * totals[i]) / all, 1)}%`).join(', ')}`);
@@ -332,7 +314,7 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
         );
       }
       console.log(`load average after: ${os.loadavg().map((l) => l.toFixed(1)).join(' ')}`);
-      console.log(`target: 1000 series per warm cycle < 30 s on 2 cores -> ${n === 1000 ? (median < 30_000 ? 'met' : 'NOT met') : 'see N = 1000'}`);
+      console.log(`target: 1000 series per warm cycle < 30 s on 2 cores -> ${n === 1000 ? (wallMedian < 30_000 ? 'met' : 'NOT met') : 'see N = 1000'}`);
     }
   } finally {
     rmSync(dir, { recursive: true, force: true });
@@ -340,10 +322,10 @@ async function benchFleet(n: number, cycles: number, workers: number, concurrenc
 }
 
 export async function run(argv: string[]): Promise<void> {
-  const sizes = arg(argv, 'series', '100,1000').split(',').map(Number);
-  const cycles = Number(arg(argv, 'cycles', '10'));
-  const workers = Number(arg(argv, 'workers', String(os.availableParallelism())));
-  const concurrency = Number(arg(argv, 'concurrency', String(Math.max(2, 2 * workers))));
+  const sizes = stringFlag(argv, '--series', '100,1000').split(',').map(Number);
+  const cycles = Number(stringFlag(argv, '--cycles', '10'));
+  const workers = Number(stringFlag(argv, '--workers', String(os.availableParallelism())));
+  const concurrency = Number(stringFlag(argv, '--concurrency', String(Math.max(2, 2 * workers))));
   const cpuSplit = argv.includes('--cpu-split');
   for (const n of sizes) {
     // One thread does everything: per-core figures are per that one core.

@@ -13,31 +13,16 @@ import { parseConfigText } from '../../src/config/load.ts';
 import { buildCandidates, gridFor } from '../../src/evaluate/tune-grid.ts';
 import { tune } from '../../src/evaluate/tune.ts';
 import type { RegularSeries } from '../../src/series/types.ts';
+import { stringFlag } from '../args.ts';
+import { mulberry32 } from '../../src/model/random.ts';
 
 const HOUR = 3_600_000;
 
-function flag(argv: string[], name: string, dflt: string): string {
-  const i = argv.indexOf(name);
-  return i >= 0 ? argv[i + 1] : dflt;
-}
-
-/** mulberry32, so runs are comparable */
-function rng(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
 export async function run(argv: string[]): Promise<void> {
-  const windows = flag(argv, '--windows', '2w,4w').split(',');
-  const centres = flag(argv, '--centres', '8,16').split(',').map(Number);
-  const spanDays = Number(flag(argv, '--span-days', '7'));
-  const threads = Number(flag(argv, '--threads', String(availableParallelism())));
+  const windows = stringFlag(argv, '--windows', '2w,4w').split(',');
+  const centres = stringFlag(argv, '--centres', '8,16').split(',').map(Number);
+  const spanDays = Number(stringFlag(argv, '--span-days', '7'));
+  const threads = Number(stringFlag(argv, '--threads', String(availableParallelism())));
   const text = `
 series:
   - name: bench-load
@@ -53,7 +38,7 @@ series:
   const { candidates } = buildCandidates(loaded.value.config, 0, gridFor(loaded.value.config.series[0]), { seed: 1 });
   const maxWindow = Math.max(...candidates.map((c) => c.windowSteps));
   const n = maxWindow + spanDays * 24 + 48;
-  const rand = rng(3);
+  const rand = mulberry32(3);
   const values = new Float64Array(n);
   for (let i = 0; i < n; i++) values[i] = 400 + 120 * Math.sin((2 * Math.PI * (i % 24)) / 24) - (Math.floor(i / 24) % 7 >= 5 ? 60 : 0) + 25 * (rand() - 0.5);
   const target: RegularSeries = { startMs: Date.UTC(2025, 0, 6), stepMs: HOUR, values, stats: { readingsIn: n, dropped: 0, outOfRange: 0, duplicates: 0, filled: 0, missingSteps: 0 } };

@@ -6,6 +6,7 @@
 import type { ForecastSettings } from '../../../src/forecast/types.ts';
 import type { FeatureOptions } from '../../../src/series/types.ts';
 import type { RegularSeries } from '../../../src/series/types.ts';
+import { mulberry32 } from '../../../src/model/random.ts';
 
 export const HOUR = 3_600_000;
 
@@ -48,17 +49,8 @@ export function hourlySettings(over: { series?: string; horizon?: number; window
   };
 }
 
-/** mulberry32 (common practice small PRNG) for reproducible noise. */
-export function rng(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
+/** Seeded uniform [0, 1) source: the model's mulberry32, so fixtures are reproducible. */
+export const rng = mulberry32;
 
 /** Standard normal by Box-Muller. */
 export function gaussian(r: () => number): () => number {
