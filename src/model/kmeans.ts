@@ -124,8 +124,6 @@ interface DistancePass {
   seed(centre: Float64Array, first: boolean): { total: number; minD2: Float64Array };
   /** Squared distance of every row to its own centre (difference form). */
   own(c: Float64Array, K: number, labels: Int32Array, out: Float64Array): Float64Array;
-  /** Squared distances (count x K) of the rows rows[0..count) only. */
-  rows(rows: Int32Array, count: number, c: Float64Array, c2: Float64Array, K: number, out: Float64Array): Float64Array;
   /** Nearest centre, its squared distance and the second smallest one, of rows[0..count) (all when null). */
   assign(rows: Int32Array | null, count: number, c: Float64Array, c2: Float64Array, K: number): Assignment;
   /** Half the distance from each centre to the nearest other centre. */
@@ -145,7 +143,6 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
     const res = sk.resident(x, x2, n, d);
     return {
       all: (c, c2, K, out) => res.dist2(c, c2, K, out),
-      rows: (rows, count, c, c2, K, out) => res.dist2Rows(rows, count, c, c2, K, out),
       own: (c, K, labels, out) => res.ownDist2(c, K, labels, out),
       seed: (centre, first) => res.seedUpdate(centre, first),
       assign: (rows, count, c, c2, K) => res.assign(rows, count, c, c2, K),
@@ -189,20 +186,20 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
       }
       return out;
     },
-    rows(rows, count, c, c2, K, out) {
-      const g = new Float64Array(count * d);
-      const g2 = new Float64Array(count);
-      for (let i = 0; i < count; i++) {
-        g.set(x.subarray(rows[i] * d, (rows[i] + 1) * d), i * d);
-        g2[i] = x2[rows[i]];
-      }
-      dist2Scalar(g, g2, count, d, c, c2, K, out);
-      return out;
-    },
     assign(rows, count, c, c2, K) {
       if (buf.length < count * K) buf = new Float64Array(n * K);
       if (found.labels.length < count) found = { labels: new Int32Array(n), best: new Float64Array(n), second: new Float64Array(n) };
-      const dist = rows ? pass.rows(rows, count, c, c2, K, buf.subarray(0, count * K)) : pass.all(c, c2, K, buf.subarray(0, count * K));
+      const dist = buf.subarray(0, count * K);
+      if (rows) {
+        // Distance rows of the listed samples only (gathered, then the scalar kernel).
+        const g = new Float64Array(count * d);
+        const g2 = new Float64Array(count);
+        for (let i = 0; i < count; i++) {
+          g.set(x.subarray(rows[i] * d, (rows[i] + 1) * d), i * d);
+          g2[i] = x2[rows[i]];
+        }
+        dist2Scalar(g, g2, count, d, c, c2, K, dist);
+      } else pass.all(c, c2, K, dist);
       argmin2Rows(dist, count, K, found);
       return found;
     },

@@ -16,8 +16,6 @@ export interface ResidentRows {
   seedUpdate(c: Float64Array, first: boolean): { total: number; minD2: Float64Array };
   /** out[i] = |x_i - c_labels[i]|^2 in the difference form (c is n x k, row-major). */
   ownDist2(c: Float64Array, n: number, labels: Int32Array, out: Float64Array): Float64Array;
-  /** out (count x n) = squared distances of the rows rows[0..count) to the n centres. */
-  dist2Rows(rows: Int32Array, count: number, c: Float64Array, c2: Float64Array, n: number, out: Float64Array): Float64Array;
   /**
    * Nearest centre of the rows rows[0..count) (all rows when rows is null): label, squared
    * distance, and squared distance to the second nearest (first on ties, like a scan in order).
@@ -64,8 +62,6 @@ interface Exports {
   ownDist(x: number, m: number, k: number, c: number, labels: number, out: number): void;
   seedUpdate(x: number, m: number, k: number, c: number, mind: number, first: number): number;
   cholesky(a: number, p: number): number;
-  distIdx(a: number, idx: number, m: number, k: number, b: number, n: number, a2: number, b2: number, c: number): void;
-  argmin2(d: number, m: number, n: number, lab: number, best: number, second: number): void;
   assign(a: number, idx: number, useIdx: number, m: number, k: number, b: number, n: number, a2: number, b2: number, dbuf: number, lab: number, best: number, second: number): void;
   centreGaps(c: number, n: number, k: number, half: number): void;
   cholSolve(l: number, p: number, b: number, h: number): void;
@@ -139,9 +135,7 @@ export function loadSimdKernels(): SimdKernels | null {
         const pb = base;
         const pb2 = align16(pb + k * np * 8);
         const pd = align16(pb2 + np * 8);
-        const pl = align16(pd + m * np * 8);
-        const pm = align16(pl + m * 4);
-        reserve(pm + m * 8);
+        reserve(pd + m * np * 8);
         if (owner !== token) upload();
         putCentres(c, c2, n, np, k, pb, pb2);
         ex.dist2(px, m, k, pb, np, px2, pb2, pd);
@@ -201,30 +195,6 @@ export function loadSimdKernels(): SimdKernels | null {
           ex.centreGaps(pc, n, k, ph);
           half.set(f64.subarray(ph / 8, ph / 8 + n));
           return half;
-        },
-        dist2Rows(rows, count, c, c2, n, out) {
-          const np = n + (n & 1);
-          const pb = base;
-          const pb2 = align16(pb + k * np * 8);
-          const pg = align16(pb2 + np * 8);
-          const pg2 = align16(pg + count * k * 8);
-          const pd = align16(pg2 + count * 8);
-          reserve(pd + count * np * 8);
-          if (owner !== token) upload();
-          putCentres(c, c2, n, np, k, pb, pb2);
-          // Gather the rows inside the module's memory (no copy through JavaScript arrays).
-          const og = pg / 8;
-          const ox = px / 8;
-          const og2 = pg2 / 8;
-          const ox2 = px2 / 8;
-          for (let i = 0; i < count; i++) {
-            const r = rows[i];
-            f64.copyWithin(og + i * k, ox + r * k, ox + (r + 1) * k);
-            f64[og2 + i] = f64[ox2 + r];
-          }
-          ex.dist2(pg, count, k, pb, np, pg2, pb2, pd);
-          copyOut(pd, count, n, np, out);
-          return out;
         },
       };
     },

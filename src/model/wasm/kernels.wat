@@ -7,8 +7,6 @@
 ;; ownDist(x, m, k, c, labels, out):    out[i] = |x_i - c_labels[i]|^2
 ;; cholesky(a, p) -> 0 | i + 1:          in-place lower Cholesky factor (row-major)
 ;; cholSolve(l, p, b, h):               B := (L L^T)^-1 B in place (h even)
-;; distIdx(a, idx, m, k, b, n, a2, b2, c): dist2 of the rows idx[0..m) of A
-;; argmin2(d, m, n, lab, best, second): per-row argmin and the two smallest values (n even)
 ;; assign(a, idx, useIdx, m, k, b, n, a2, b2, dbuf, lab, best, second): distances + argmin2 in chunks
 ;; centreGaps(c, n, k, half):          half the distance from each centre to the nearest other one
 ;; expNeg(g, d, m, k, out):             out[i,j] = exp(-g[j] d[i,j])   (k even)
@@ -644,15 +642,10 @@
       (param $a2 i32) (param $b2 i32) (param $c i32)
     (call $kernelDist (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
       (i32.const 1) (local.get $a2) (local.get $b2) (i32.const 0)))
-  ;; distIdx(a, idx, m, k, b, n, a2, b2, c): dist2 of the rows idx[0..m) of A (row i of C is row idx[i] of A).
-  (func (export "distIdx") (param $a i32) (param $idx i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32)
-      (param $a2 i32) (param $b2 i32) (param $c i32)
-    (call $kernelDistIdx (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
-      (i32.const 1) (local.get $a2) (local.get $b2) (local.get $idx)))
   ;; argmin2(d, m, n, lab, best, second): per row of D (m x n, n even) the smallest value, the first
   ;; column holding it, and the second smallest value (equal to the smallest on ties; Infinity for
   ;; one real column next to the +Infinity pad). Per lane the two smallest are kept with min/max.
-  (func $argmin2 (export "argmin2") (param $d i32) (param $m i32) (param $n i32) (param $lab i32) (param $best i32) (param $second i32)
+  (func $argmin2 (param $d i32) (param $m i32) (param $n i32) (param $lab i32) (param $best i32) (param $second i32)
     (local $i i32) (local $k i32) (local $o i32) (local $nb i32) (local $v v128) (local $lo v128) (local $hi v128) (local $b1 f64) (local $b2 f64) (local $s v128)
     (local.set $nb (i32.shl (local.get $n) (i32.const 3)))
     (block $iend (loop $iloop (br_if $iend (i32.ge_s (local.get $i) (local.get $m)))
