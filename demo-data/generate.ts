@@ -20,6 +20,7 @@ import { readFileSync, writeFileSync } from 'node:fs';
 import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import Holidays from 'date-holidays';
+import { mulberry32 } from '../src/model/random.ts';
 
 const HOUR = 3_600_000;
 const ZONE = 'Europe/Berlin';
@@ -31,18 +32,6 @@ const SEED = 20241125;
 
 export const SERIES = ['oskaveld-north', 'brennick-yard', 'tarrow-hill'] as const;
 export const TEMP = 'oskaveld-outdoor-temp';
-
-/** mulberry32 (public-domain 32-bit generator). */
-function mulberry32(seed: number): () => number {
-  let s = seed >>> 0;
-  return () => {
-    s = (s + 0x6d2b79f5) >>> 0;
-    let t = s;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
 
 /** Standard normal by Box-Muller. */
 function gaussian(rnd: () => number): () => number {
