@@ -353,6 +353,14 @@ export function fitAt(target: RegularSeries, exo: Record<string, RegularSeries>,
   return out;
 }
 
+/** The network's input at an origin (checked by the caller): inputs cut to what is known there. */
+function inputAt(fitted: FittedForecaster, target: RegularSeries, exo: Record<string, RegularSeries>, settings: ForecastSettings, originIndex: number) {
+  const originMs = target.startMs + originIndex * target.stepMs;
+  const known = cutAtIndex(target, originIndex);
+  const exoKnown = cutExo(exo, settings, originMs, settings.features.horizon * target.stepMs);
+  return buildForecastInput(known, exoKnown, settings.features, fitted.scaler, originIndex);
+}
+
 /**
  * Forecasts the H steps after originIndex with a fitted forecaster (usually the origin it was
  * fitted at; a later origin forecasts with the older model). Throws MISSING_INPUT when an input
@@ -365,9 +373,7 @@ export function forecastAt(fitted: FittedForecaster, target: RegularSeries, exo:
   if (fitted.horizon !== H || fitted.model.nOutputs !== H) {
     throw new ForecastError({ code: 'BAD_FITTED', series: settings.series, message: `the fitted model forecasts ${fitted.model.nOutputs} steps, the settings ask for ${H}`, hint: 'refit after changing the horizon' });
   }
-  const known = cutAtIndex(target, originIndex);
-  const exoKnown = cutExo(exo, settings, originMs, H * target.stepMs);
-  const input = buildForecastInput(known, exoKnown, settings.features, fitted.scaler, originIndex);
+  const input = inputAt(fitted, target, exo, settings, originIndex);
   const pred = predictRbf(fitted.model, { data: input.x, rows: 1, cols: input.x.length });
   const values = new Float64Array(H);
   for (let h = 0; h < H; h++) {
@@ -385,16 +391,13 @@ export function forecastAt(fitted: FittedForecaster, target: RegularSeries, exo:
  * whose input cannot be built (a gap) gets null.
  */
 export function noveltyAt(fitted: FittedForecaster, target: RegularSeries, exo: Record<string, RegularSeries>, settings: ForecastSettings, originIndices: readonly number[]): Array<number | null> {
-  const H = settings.features.horizon;
   const d = fitted.model.nFeatures;
   const rowsOk: number[] = [];
   const x = new Float64Array(originIndices.length * d);
   originIndices.forEach((originIndex, i) => {
     try {
       checkOrigin(target, settings, originIndex);
-      const originMs = target.startMs + originIndex * target.stepMs;
-      const input = buildForecastInput(cutAtIndex(target, originIndex), cutExo(exo, settings, originMs, H * target.stepMs), settings.features, fitted.scaler, originIndex);
-      x.set(input.x, rowsOk.length * d);
+      x.set(inputAt(fitted, target, exo, settings, originIndex).x, rowsOk.length * d);
       rowsOk.push(i);
     } catch {
       // no input at this origin
