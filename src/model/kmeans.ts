@@ -54,13 +54,14 @@ export function kmeans(x: Dense, opts: KMeansOptions): KMeansResult {
   const tolAbs = tol * meanVariance(work, nWork, nFeatures);
 
   const pass = distancePass(work, x2, nWork, nFeatures);
+  const how: LloydOptions = { trackInertia: opts.trackInertia === true, prune: opts.prune !== false };
   let best: LloydRun | null = null;
   if (opts.initialCentres !== undefined) {
-    best = lloyd(work, x2, nWork, nFeatures, Float64Array.from(opts.initialCentres.data), nCentres, maxPasses, tolAbs, pass);
+    best = lloyd(work, x2, nWork, nFeatures, Float64Array.from(opts.initialCentres.data), nCentres, maxPasses, tolAbs, pass, how);
   } else {
     for (let r = 0; r < restarts; r++) {
       const c0 = seedPlusPlus(work, nWork, nFeatures, nCentres, rnd, pass);
-      const run = lloyd(work, x2, nWork, nFeatures, c0, nCentres, maxPasses, tolAbs, pass);
+      const run = lloyd(work, x2, nWork, nFeatures, c0, nCentres, maxPasses, tolAbs, pass, how);
       if (best === null || run.inertia < best.inertia) best = run;
     }
   }
@@ -122,8 +123,8 @@ interface DistancePass {
   all(c: Float64Array, c2: Float64Array, K: number, out: Float64Array): Float64Array;
   /** k-means++ step (see SimdKernels.seedUpdate); minD2 is valid until the next call. */
   seed(centre: Float64Array, first: boolean): { total: number; minD2: Float64Array };
-  /** Squared distance of every row to its own centre (difference form). */
-  own(c: Float64Array, K: number, labels: Int32Array, out: Float64Array): Float64Array;
+  /** Squared distance to its own centre (difference form) of rows[0..count), or of every row when rows is null. */
+  own(c: Float64Array, K: number, labels: Int32Array, out: Float64Array, rows: Int32Array | null, count: number): Float64Array;
   /** Nearest centre, its squared distance and the second smallest one, of rows[0..count) (all when null). */
   assign(rows: Int32Array | null, count: number, c: Float64Array, c2: Float64Array, K: number): Assignment;
   /** Half the distance from each centre to the nearest other centre. */
@@ -143,7 +144,7 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
     const res = sk.resident(x, x2, n, d);
     return {
       all: (c, c2, K, out) => res.dist2(c, c2, K, out),
-      own: (c, K, labels, out) => res.ownDist2(c, K, labels, out),
+      own: (c, K, labels, out, rows, count) => res.ownDist2(c, K, labels, out, rows, count),
       seed: (centre, first) => res.seedUpdate(centre, first),
       assign: (rows, count, c, c2, K) => res.assign(rows, count, c, c2, K),
       gaps: (c, K, half) => res.centreGaps(c, K, half),
@@ -173,8 +174,9 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
         return { total, minD2 };
       };
     })(),
-    own(c, _K, labels, out) {
-      for (let i = 0; i < n; i++) {
+    own(c, _K, labels, out, rows, count) {
+      for (let t = 0; t < count; t++) {
+        const i = rows ? rows[t] : t;
         let s = 0;
         const xo = i * d;
         const co = labels[i] * d;
@@ -182,7 +184,7 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
           const e = x[xo + j] - c[co + j];
           s += e * e;
         }
-        out[i] = s;
+        out[t] = s;
       }
       return out;
     },
@@ -297,22 +299,38 @@ function seedPlusPlus(x: Float64Array, n: number, d: number, K: number, rnd: Ran
   return c;
 }
 
+/** How a Lloyd run is carried out (results are the same either way). */
+export interface LloydOptions {
+  /** Record the exact within-cluster sum of squares after every assignment (costs a distance per row and pass). */
+  trackInertia?: boolean;
+  /** Skip rows whose centre is proven unchanged (default true; false runs plain Lloyd, for comparisons). */
+  prune?: boolean;
+}
+
 /**
  * Lloyd's algorithm from the given centres: assign, repair empty clusters, move centres to the
  * means; stop when no label changes, the squared centre shift is <= tolAbs, or after maxPasses.
  * Ends with an assignment to the final centres so labels and inertia agree with them.
  *
- * Assignments after the first skip the full distance row of a sample when Hamerly's bounds
- * (Hamerly 2010, "Making k-means even faster") prove its centre is still the nearest: the exact
- * distance u to its own centre against a lower bound l on the second nearest (decreased by the
- * largest centre move) and half the distance from its centre to the nearest other centre. The
- * test keeps a relative margin of 1e-9, far above the rounding of the distance kernel, so every
- * skipped sample would have kept its label in the full pass too: the result equals plain Lloyd.
+ * Assignments after the first skip a sample when Hamerly's bounds (Hamerly 2010, "Making k-means
+ * even faster") prove its centre is still the nearest. Per sample it keeps an upper bound u on
+ * the distance to its own centre (grown by that centre's move) and a lower bound l on the
+ * distance to the second nearest (shrunk by the largest move of another centre). A sample is
+ * skipped when u, or else its exact distance, lies below z = max(l, half the distance from its
+ * centre to the nearest other centre). The full pass ranks centres by |x|^2 + |c|^2 - 2 x.c,
+ * whose rounding error is absolute, at most about (d + 2) eps (|x|^2 + |c|^2); so the test is
+ * u^2 + slack < z^2 (1 - 2e-9) with slack = 8 (d + 2) eps (|x|^2 + max |c|^2), a relative
+ * margin for the rounding of the bounds themselves. Every skipped sample then keeps its label in
+ * the full pass too, and the result equals plain Lloyd bit for bit (tested against prune: false).
  */
-export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, centres: Float64Array, K: number, maxPasses: number, tolAbs: number, pass = distancePass(x, x2, n, d)): LloydRun {
+export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, centres: Float64Array, K: number, maxPasses: number, tolAbs: number, pass = distancePass(x, x2, n, d), opts: LloydOptions = {}): LloydRun {
+  const track = opts.trackInertia === true;
+  const prune = opts.prune !== false;
   const labels = new Int32Array(n).fill(-1);
-  /** Squared distance of every sample to its own centre (exact difference form after pass 1). */
+  /** Squared distance to the own centre; exact for every sample only after exactOwn(). */
   const own = new Float64Array(n);
+  /** Upper bound on the distance (not squared) to the own centre. */
+  const upper = new Float64Array(n);
   /** Lower bound on the distance (not squared) to the second nearest centre. */
   const lower = new Float64Array(n);
   const counts = new Int32Array(K);
@@ -322,6 +340,10 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
   const moved = new Float64Array(K);
   const half = new Float64Array(K);
   const todo = new Int32Array(n);
+  const check = new Int32Array(n);
+  const checked = new Float64Array(n);
+  /** Rounding slack of the expanded distance form, per unit of |x|^2 + max |c|^2. */
+  const slackUnit = 8 * (d + 2) * 2 ** -52;
   const inertiaByPass: number[] = [];
   let passes = 0;
   let settled = false;
@@ -357,8 +379,15 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
         moveSample(i, old, bk);
       }
       own[i] = best[t];
+      upper[i] = Math.sqrt(best[t]);
       lower[i] = Math.sqrt(second[t]);
     }
+  };
+
+  /** Exact squared distance of every sample to its own centre, into own (and upper). */
+  const exactOwn = (): void => {
+    pass.own(centres, K, labels, own, null, n);
+    for (let i = 0; i < n; i++) upper[i] = Math.sqrt(own[i]);
   };
 
   const full = (): void => {
@@ -381,18 +410,16 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
       } else if (v > m2) m2 = v;
     }
     pass.gaps(centres, K, half);
-    let count = 0;
-    // u = |x_i - c_a| in the exact difference form, for every sample.
-    pass.own(centres, K, labels, own);
-    for (let i = 0; i < n; i++) {
-      const a = labels[i];
-      const l = lower[i] - (a === mk ? m2 : m1);
-      lower[i] = l;
-      // sqrt(own) >= bound (1 - 1e-9), compared squared (bound >= 0: half is).
-      const bound = (l > half[a] ? l : half[a]) * (1 - 1e-9);
-      if (own[i] >= bound * bound) todo[count++] = i;
-    }
-    if (count > 0) assignRows(todo, count);
+    let c2max = 0;
+    for (let k = 0; k < K; k++) c2max = Math.max(c2max, c2[k]);
+    // Bounds first: samples whose upper bound does not settle it get their exact distance.
+    const nCheck = prune ? boundScan(n, labels, lower, upper, x2, half, moved, m1, m2, mk, slackUnit * c2max, slackUnit, check) : shrinkAll(n, labels, lower, upper, moved, m1, m2, mk, check);
+    if (track) {
+      exactOwn();
+      for (let t = 0; t < nCheck; t++) checked[t] = own[check[t]];
+    } else if (nCheck > 0) pass.own(centres, K, labels, checked, check, nCheck);
+    const count = prune ? boundFilter(nCheck, check, checked, labels, lower, upper, own, x2, half, slackUnit * c2max, slackUnit, todo) : nCheck;
+    if (count > 0) assignRows(prune ? todo : null, count);
   };
 
   const sumOwn = (): number => {
@@ -406,7 +433,7 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
     if (passes === 0) full();
     else bounded();
     passes++;
-    inertiaByPass.push(sumOwn());
+    if (track) inertiaByPass.push(sumOwn());
     if (passes > 1 && changed === 0) {
       settled = true;
       break;
@@ -414,7 +441,10 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
     before.set(centres);
     let empty = false;
     for (let k = 0; k < K; k++) if (counts[k] === 0) empty = true;
-    if (empty) repairEmpty(n, d, own, K, labels, counts, centres, lower, x, moveSample);
+    if (empty) {
+      exactOwn(); // the farthest sample by exact distances, whatever the bounds skipped
+      repairEmpty(n, d, own, K, labels, counts, centres, lower, upper, x, moveSample);
+    }
     // Centre update: c_k = mean of its members (sums kept current by moveSample).
     for (let k = 0; k < K; k++) {
       const cnt = counts[k];
@@ -438,9 +468,62 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
     changed = 0;
     bounded();
     passes++;
-    inertiaByPass.push(sumOwn());
+    if (track) inertiaByPass.push(sumOwn());
   }
-  return { centres, labels, inertia: inertiaByPass[inertiaByPass.length - 1], passes, inertiaByPass };
+  if (!track) exactOwn();
+  const inertia = track ? inertiaByPass[inertiaByPass.length - 1] : sumOwn();
+  return { centres, labels, inertia, passes, inertiaByPass };
+}
+
+/**
+ * First bound test of a pruned pass: shrinks each lower bound by the largest move of another
+ * centre, grows each upper bound by its own centre's move, and lists the samples where
+ * u^2 + slack < z^2 (1 - 2e-9), z = max(l, half[a]), does not hold (slack = slack0 + slackUnit |x|^2).
+ * Returns how many were listed. (Top-level with typed-array parameters: stays optimised.)
+ */
+function boundScan(n: number, labels: Int32Array, lower: Float64Array, upper: Float64Array, x2: Float64Array, half: Float64Array, moved: Float64Array, m1: number, m2: number, mk: number, slack0: number, slackUnit: number, check: Int32Array): number {
+  let nCheck = 0;
+  for (let i = 0; i < n; i++) {
+    const a = labels[i];
+    const l = lower[i] - (a === mk ? m2 : m1);
+    lower[i] = l;
+    const u = upper[i] + moved[a];
+    upper[i] = u;
+    const h = half[a];
+    const z = l > h ? l : h;
+    if (u * u + slack0 + slackUnit * x2[i] >= z * z * (1 - 2e-9)) check[nCheck++] = i;
+  }
+  return nCheck;
+}
+
+/** The bound updates of boundScan without the test (plain Lloyd): lists every sample. */
+function shrinkAll(n: number, labels: Int32Array, lower: Float64Array, upper: Float64Array, moved: Float64Array, m1: number, m2: number, mk: number, check: Int32Array): number {
+  for (let i = 0; i < n; i++) {
+    const a = labels[i];
+    lower[i] -= a === mk ? m2 : m1;
+    upper[i] += moved[a];
+    check[i] = i;
+  }
+  return n;
+}
+
+/**
+ * Second bound test, with the exact squared distances `checked` of the listed samples: stores
+ * them (own, upper) and lists in todo the samples still not proven to keep their centre.
+ */
+function boundFilter(nCheck: number, check: Int32Array, checked: Float64Array, labels: Int32Array, lower: Float64Array, upper: Float64Array, own: Float64Array, x2: Float64Array, half: Float64Array, slack0: number, slackUnit: number, todo: Int32Array): number {
+  let count = 0;
+  for (let t = 0; t < nCheck; t++) {
+    const i = check[t];
+    const s = checked[t];
+    own[i] = s;
+    upper[i] = Math.sqrt(s);
+    const l = lower[i];
+    const h = half[labels[i]];
+    const z = l > h ? l : h;
+    if (s + slack0 + slackUnit * x2[i] >= z * z * (1 - 2e-9)) todo[count++] = i;
+  }
+  return count;
 }
 
 /**
@@ -456,6 +539,7 @@ function repairEmpty(
   counts: Int32Array,
   centres: Float64Array,
   lower: Float64Array,
+  upper: Float64Array,
   x: Float64Array,
   moveSample: (i: number, from: number, to: number) => void,
 ): void {
@@ -473,6 +557,7 @@ function repairEmpty(
     if (far < 0) break;
     moveSample(far, labels[far], k);
     own[far] = 0;
+    upper[far] = 0;
     lower[far] = 0; // its old centre may now be the nearest other one: recompute next pass
     for (let j = 0; j < d; j++) centres[k * d + j] = x[far * d + j];
   }

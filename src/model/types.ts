@@ -27,6 +27,10 @@ export interface KMeansOptions {
   initialCentres?: Dense;
   /** Run Lloyd on a seeded subsample of this many rows, then assign every row (0 = off). */
   subsampleRows?: number;
+  /** Record the within-cluster sum of squares after every pass in inertiaByPass (default false: it costs a distance per row and pass). */
+  trackInertia?: boolean;
+  /** Skip samples whose centre is proven unchanged by distance bounds (default true; false runs plain Lloyd, same result). */
+  prune?: boolean;
 }
 
 export interface KMeansResult {
@@ -38,7 +42,7 @@ export interface KMeansResult {
   passes: number;
   /** Squared distances of every sample to every centre (nSamples x nCentres). */
   dist2: Dense;
-  /** Within-cluster sum of squares after each assignment step of the winning run (non-increasing). */
+  /** Within-cluster sum of squares after each assignment step of the winning run (non-increasing); empty unless trackInertia. */
   inertiaByPass: number[];
 }
 

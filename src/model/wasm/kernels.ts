@@ -14,8 +14,11 @@ export interface ResidentRows {
    * = when first). Returns the sum and a view of minD2, valid until the next kernel call.
    */
   seedUpdate(c: Float64Array, first: boolean): { total: number; minD2: Float64Array };
-  /** out[i] = |x_i - c_labels[i]|^2 in the difference form (c is n x k, row-major). */
-  ownDist2(c: Float64Array, n: number, labels: Int32Array, out: Float64Array): Float64Array;
+  /**
+   * out[t] = |x_r - c_labels[r]|^2 in the difference form (c is n x k, row-major) for the rows
+   * r = rows[t], t < count, or for every row (t = r) when rows is null.
+   */
+  ownDist2(c: Float64Array, n: number, labels: Int32Array, out: Float64Array, rows?: Int32Array | null, count?: number): Float64Array;
   /**
    * Nearest centre of the rows rows[0..count) (all rows when rows is null): label, squared
    * distance, and squared distance to the second nearest (first on ties, like a scan in order).
@@ -59,7 +62,7 @@ interface Exports {
   gemmAddUpper(a: number, m: number, k: number, b: number, n: number, c: number): void;
   dist2(a: number, m: number, k: number, b: number, n: number, a2: number, b2: number, c: number): void;
   transpose(src: number, rows: number, cols: number, stride: number, dst: number): void;
-  ownDist(x: number, m: number, k: number, c: number, labels: number, out: number): void;
+  ownDist(x: number, idx: number, useIdx: number, m: number, k: number, c: number, labels: number, out: number): void;
   seedUpdate(x: number, m: number, k: number, c: number, mind: number, first: number): number;
   cholesky(a: number, p: number): number;
   assign(a: number, idx: number, useIdx: number, m: number, k: number, b: number, n: number, a2: number, b2: number, dbuf: number, lab: number, best: number, second: number): void;
@@ -159,16 +162,18 @@ export function loadSimdKernels(): SimdKernels | null {
           const total = ex.seedUpdate(px, m, k, pc, pm, first ? 1 : 0);
           return { total, minD2: f64.subarray(pm / 8, pm / 8 + m) };
         },
-        ownDist2(c, n, labels, out) {
+        ownDist2(c, n, labels, out, rows = null, count = m) {
           const pc = base;
           const pl = align16(pc + n * k * 8);
-          const po = align16(pl + m * 4);
-          reserve(po + m * 8);
+          const pi = align16(pl + m * 4);
+          const po = align16(pi + (rows ? count * 4 : 0));
+          reserve(po + count * 8);
           if (owner !== token) upload();
           f64.set(c.subarray(0, n * k), pc / 8);
           new Int32Array(mem.buffer, pl, m).set(labels.subarray(0, m));
-          ex.ownDist(px, m, k, pc, pl, po);
-          out.set(f64.subarray(po / 8, po / 8 + m));
+          if (rows) new Int32Array(mem.buffer, pi, count).set(rows.subarray(0, count));
+          ex.ownDist(px, pi, rows ? 1 : 0, count, k, pc, pl, po);
+          out.set(f64.subarray(po / 8, po / 8 + count));
           return out;
         },
         assign(rows, count, c, c2, n) {

@@ -108,10 +108,26 @@ describe('kmeans properties (fast-check)', () => {
   it('the objective never increases from one Lloyd pass to the next', () => {
     fc.assert(
       fc.property(data, ({ x, k, seed }) => {
-        const r = kmeans(x, { nCentres: k, restarts: 1, maxPasses: 50, tol: 0, seed });
+        const r = kmeans(x, { nCentres: k, restarts: 1, maxPasses: 50, tol: 0, seed, trackInertia: true });
         const h = r.inertiaByPass;
+        expect(h.length).toBe(r.passes);
         for (let i = 1; i < h.length; i++) expect(h[i]).toBeLessThanOrEqual(h[i - 1] * (1 + 1e-12) + 1e-9);
         expect(h[h.length - 1]).toBeCloseTo(r.inertia, 6);
+      }),
+      { numRuns: 150 },
+    );
+  });
+
+  it('pruning by distance bounds gives the same labels, centres and passes as plain Lloyd', () => {
+    fc.assert(
+      fc.property(data, ({ x, k, seed }) => {
+        const o = { nCentres: k, restarts: 2, maxPasses: 50, tol: 0, seed };
+        const a = kmeans(x, o);
+        const b = kmeans(x, { ...o, prune: false });
+        expect(Array.from(a.labels)).toEqual(Array.from(b.labels));
+        expect(Array.from(a.centres.data)).toEqual(Array.from(b.centres.data));
+        expect(a.passes).toBe(b.passes);
+        expect(a.inertia).toBe(b.inertia);
       }),
       { numRuns: 150 },
     );
