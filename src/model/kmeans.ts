@@ -8,6 +8,7 @@ import { ModelError } from './errors.ts';
 import { checkDense, checkInt, checkNumber } from './check.ts';
 import { mulberry32, randomIndex, type Random } from './random.ts';
 import { dist2All, dist2Scalar, rowNorms2, simdKernels } from './distance.ts';
+import type { LloydState, LloydWork } from './wasm/kernels.ts';
 
 /** Result of one Lloyd run (internal). */
 interface LloydRun {
@@ -129,6 +130,8 @@ interface DistancePass {
   assign(rows: Int32Array | null, count: number, c: Float64Array, c2: Float64Array, K: number): Assignment;
   /** Half the distance from each centre to the nearest other centre. */
   gaps(c: Float64Array, K: number, half: Float64Array): Float64Array;
+  /** State and assignment passes of a Lloyd run with K centres. */
+  lloyd(K: number): LloydWork;
 }
 
 /** Views valid until the next call on the pass. */
@@ -148,6 +151,7 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
       seed: (centre, first) => res.seedUpdate(centre, first),
       assign: (rows, count, c, c2, K) => res.assign(rows, count, c, c2, K),
       gaps: (c, K, half) => res.centreGaps(c, K, half),
+      lloyd: (K) => res.lloydWork(K),
     };
   }
   let buf = new Float64Array(0);
@@ -221,8 +225,79 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
       }
       return half;
     },
+    lloyd: (K) => jsLloydWork(x, x2, n, d, K, pass),
   };
   return pass;
+}
+
+/** LloydWork on plain arrays, with the scalar passes (the same steps as the module's lloydPass). */
+function jsLloydWork(x: Float64Array, x2: Float64Array, n: number, d: number, K: number, pass: DistancePass): LloydWork {
+  const st: LloydState = { labels: new Int32Array(n), own: new Float64Array(n), upper: new Float64Array(n), lower: new Float64Array(n), sums: new Float64Array(K * d), counts: new Int32Array(K) };
+  const half = new Float64Array(K);
+  const check = new Int32Array(n);
+  const todo = new Int32Array(n);
+  const checked = new Float64Array(n);
+  return {
+    views: () => st,
+    reset() {
+      st.labels.fill(-1);
+      st.sums.fill(0);
+      st.counts.fill(0);
+    },
+    pass(c, c2, moved, mode, m1, m2, mk, slack0, slackUnit) {
+      let rows: Int32Array | null = null;
+      let count = n;
+      if (mode === 1) {
+        pass.gaps(c, K, half);
+        const nCheck = boundScan(n, st.labels, st.lower, st.upper, x2, half, moved, m1, m2, mk, slack0, slackUnit, check);
+        if (nCheck > 0) pass.own(c, K, st.labels, checked, check, nCheck);
+        count = boundFilter(nCheck, check, checked, st.labels, st.lower, st.upper, st.own, x2, half, slack0, slackUnit, todo);
+        rows = todo;
+      } else if (mode === 2) shrinkAll(n, st.labels, st.lower, st.upper, moved, m1, m2, mk);
+      return count > 0 ? applyAssignment(pass.assign(rows, count, c, c2, K), rows, count, x, d, st) : 0;
+    },
+    exactOwn(c) {
+      pass.own(c, K, st.labels, st.own, null, n);
+      for (let i = 0; i < n; i++) st.upper[i] = Math.sqrt(st.own[i]);
+    },
+  };
+}
+
+/** Takes the nearest centres found for rows[0..count) (all when null) into the state; returns how many labels changed. */
+function applyAssignment(found: Assignment, rows: Int32Array | null, count: number, x: Float64Array, d: number, st: LloydState): number {
+  const { labels: to, best, second } = found;
+  let changed = 0;
+  for (let t = 0; t < count; t++) {
+    const i = rows ? rows[t] : t;
+    const bk = to[t];
+    const old = st.labels[i];
+    if (old !== bk) {
+      changed++;
+      moveSample(x, d, st, i, old, bk);
+    }
+    st.own[i] = best[t];
+    st.upper[i] = Math.sqrt(best[t]);
+    st.lower[i] = Math.sqrt(second[t]);
+  }
+  return changed;
+}
+
+/**
+ * Moves sample i from cluster `from` (-1: none) to `to`, keeping the member sums and counts
+ * current, so the centre update costs K x d instead of n x d.
+ */
+function moveSample(x: Float64Array, d: number, st: LloydState, i: number, from: number, to: number): void {
+  const { sums, counts } = st;
+  const xo = i * d;
+  if (from >= 0) {
+    counts[from]--;
+    const so = from * d;
+    for (let j = 0; j < d; j++) sums[so + j] -= x[xo + j];
+  }
+  counts[to]++;
+  const so = to * d;
+  for (let j = 0; j < d; j++) sums[so + j] += x[xo + j];
+  st.labels[i] = to;
 }
 
 /** Per row of dist (count x K): first smallest value, its column, and the second smallest value. */
@@ -326,81 +401,37 @@ export interface LloydOptions {
 export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, centres: Float64Array, K: number, maxPasses: number, tolAbs: number, pass = distancePass(x, x2, n, d), opts: LloydOptions = {}): LloydRun {
   const track = opts.trackInertia === true;
   const prune = opts.prune !== false;
-  const labels = new Int32Array(n).fill(-1);
-  /** Squared distance to the own centre; exact for every sample only after exactOwn(). */
-  const own = new Float64Array(n);
-  /** Upper bound on the distance (not squared) to the own centre. */
-  const upper = new Float64Array(n);
-  /** Lower bound on the distance (not squared) to the second nearest centre. */
-  const lower = new Float64Array(n);
-  const counts = new Int32Array(K);
-  const sums = new Float64Array(K * d);
+  const work = pass.lloyd(K);
+  work.reset();
   const c2 = new Float64Array(K);
   const before = new Float64Array(K * d);
   const moved = new Float64Array(K);
-  const half = new Float64Array(K);
-  const todo = new Int32Array(n);
-  const check = new Int32Array(n);
-  const checked = new Float64Array(n);
+  const inertiaByPass: number[] = [];
   /** Rounding slack of the expanded distance form, per unit of |x|^2 + max |c|^2. */
   const slackUnit = 8 * (d + 2) * 2 ** -52;
-  const inertiaByPass: number[] = [];
   let passes = 0;
   let settled = false;
   let changed = 0;
 
-  /**
-   * Moves sample i from cluster `from` (-1: none) to `to`, keeping the member sums and counts
-   * current, so the centre update costs K x d instead of n x d.
-   */
-  const moveSample = (i: number, from: number, to: number): void => {
-    const xo = i * d;
-    if (from >= 0) {
-      counts[from]--;
-      const so = from * d;
-      for (let j = 0; j < d; j++) sums[so + j] -= x[xo + j];
-    }
-    counts[to]++;
-    const so = to * d;
-    for (let j = 0; j < d; j++) sums[so + j] += x[xo + j];
-    labels[i] = to;
+  const sumOwn = (): number => {
+    const { own } = work.views();
+    let s = 0;
+    for (let i = 0; i < n; i++) s += own[i];
+    return s;
   };
 
-  /** Full assignment of the given rows (all when null) to their nearest centres. */
-  const assignRows = (rows: Int32Array | null, count: number): void => {
-    const found = pass.assign(rows, count, centres, c2, K);
-    const { labels: to, best, second } = found;
-    for (let t = 0; t < count; t++) {
-      const i = rows ? rows[t] : t;
-      const bk = to[t];
-      const old = labels[i];
-      if (old !== bk) {
-        changed++;
-        moveSample(i, old, bk);
-      }
-      own[i] = best[t];
-      upper[i] = Math.sqrt(best[t]);
-      lower[i] = Math.sqrt(second[t]);
-    }
-  };
-
-  /** Exact squared distance of every sample to its own centre, into own (and upper). */
-  const exactOwn = (): void => {
-    pass.own(centres, K, labels, own, null, n);
-    for (let i = 0; i < n; i++) upper[i] = Math.sqrt(own[i]);
-  };
-
-  const full = (): void => {
+  /** One assignment pass: every row the first time, after that the rows the bounds do not settle. */
+  const assign = (): void => {
     rowNorms2(centres, K, d, c2);
-    assignRows(null, n);
-  };
-
-  const bounded = (): void => {
-    rowNorms2(centres, K, d, c2);
-    // Largest and second largest centre move; half distance to the nearest other centre.
+    if (passes === 0) {
+      changed = work.pass(centres, c2, moved, 0, 0, 0, -1, 0, 0);
+      return;
+    }
+    // Largest and second largest centre move (the lower bounds shrink by them).
     let m1 = 0;
     let m2 = 0;
     let mk = -1;
+    let c2max = 0;
     for (let k = 0; k < K; k++) {
       const v = moved[k];
       if (v > m1) {
@@ -408,44 +439,33 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
         m1 = v;
         mk = k;
       } else if (v > m2) m2 = v;
+      c2max = Math.max(c2max, c2[k]);
     }
-    pass.gaps(centres, K, half);
-    let c2max = 0;
-    for (let k = 0; k < K; k++) c2max = Math.max(c2max, c2[k]);
-    // Bounds first: samples whose upper bound does not settle it get their exact distance.
-    const nCheck = prune ? boundScan(n, labels, lower, upper, x2, half, moved, m1, m2, mk, slackUnit * c2max, slackUnit, check) : shrinkAll(n, labels, lower, upper, moved, m1, m2, mk, check);
-    if (track) {
-      exactOwn();
-      for (let t = 0; t < nCheck; t++) checked[t] = own[check[t]];
-    } else if (nCheck > 0) pass.own(centres, K, labels, checked, check, nCheck);
-    const count = prune ? boundFilter(nCheck, check, checked, labels, lower, upper, own, x2, half, slackUnit * c2max, slackUnit, todo) : nCheck;
-    if (count > 0) assignRows(prune ? todo : null, count);
-  };
-
-  const sumOwn = (): number => {
-    let s = 0;
-    for (let i = 0; i < n; i++) s += own[i];
-    return s;
+    changed = work.pass(centres, c2, moved, prune ? 1 : 2, m1, m2, mk, slackUnit * c2max, slackUnit);
   };
 
   while (passes < maxPasses) {
-    changed = 0;
-    if (passes === 0) full();
-    else bounded();
+    assign();
     passes++;
-    if (track) inertiaByPass.push(sumOwn());
+    if (track) {
+      work.exactOwn(centres);
+      inertiaByPass.push(sumOwn());
+    }
     if (passes > 1 && changed === 0) {
       settled = true;
       break;
     }
     before.set(centres);
+    let { counts } = work.views();
     let empty = false;
     for (let k = 0; k < K; k++) if (counts[k] === 0) empty = true;
     if (empty) {
-      exactOwn(); // the farthest sample by exact distances, whatever the bounds skipped
-      repairEmpty(n, d, own, K, labels, counts, centres, lower, upper, x, moveSample);
+      work.exactOwn(centres); // the farthest sample by exact distances, whatever the bounds skipped
+      repairEmpty(n, d, K, x, centres, work.views());
+      counts = work.views().counts;
     }
-    // Centre update: c_k = mean of its members (sums kept current by moveSample).
+    // Centre update: c_k = mean of its members (sums kept current by the passes).
+    const { sums } = work.views();
     for (let k = 0; k < K; k++) {
       const cnt = counts[k];
       if (cnt === 0) continue;
@@ -465,14 +485,16 @@ export function lloyd(x: Float64Array, x2: Float64Array, n: number, d: number, c
     if (shift <= tolAbs) break;
   }
   if (!settled) {
-    changed = 0;
-    bounded();
+    assign();
     passes++;
-    if (track) inertiaByPass.push(sumOwn());
+    if (track) {
+      work.exactOwn(centres);
+      inertiaByPass.push(sumOwn());
+    }
   }
-  if (!track) exactOwn();
+  if (!track) work.exactOwn(centres);
   const inertia = track ? inertiaByPass[inertiaByPass.length - 1] : sumOwn();
-  return { centres, labels, inertia, passes, inertiaByPass };
+  return { centres, labels: Int32Array.from(work.views().labels), inertia, passes, inertiaByPass };
 }
 
 /**
@@ -496,15 +518,13 @@ function boundScan(n: number, labels: Int32Array, lower: Float64Array, upper: Fl
   return nCheck;
 }
 
-/** The bound updates of boundScan without the test (plain Lloyd): lists every sample. */
-function shrinkAll(n: number, labels: Int32Array, lower: Float64Array, upper: Float64Array, moved: Float64Array, m1: number, m2: number, mk: number, check: Int32Array): number {
+/** The bound updates of boundScan without the test (plain Lloyd assigns every sample). */
+function shrinkAll(n: number, labels: Int32Array, lower: Float64Array, upper: Float64Array, moved: Float64Array, m1: number, m2: number, mk: number): void {
   for (let i = 0; i < n; i++) {
     const a = labels[i];
     lower[i] -= a === mk ? m2 : m1;
     upper[i] += moved[a];
-    check[i] = i;
   }
-  return n;
 }
 
 /**
@@ -530,19 +550,8 @@ function boundFilter(nCheck: number, check: Int32Array, checked: Float64Array, l
  * Empty clusters take the sample farthest from its own centre (which then forms a singleton);
  * `own` holds each sample's squared distance to its centre.
  */
-function repairEmpty(
-  n: number,
-  d: number,
-  own: Float64Array,
-  K: number,
-  labels: Int32Array,
-  counts: Int32Array,
-  centres: Float64Array,
-  lower: Float64Array,
-  upper: Float64Array,
-  x: Float64Array,
-  moveSample: (i: number, from: number, to: number) => void,
-): void {
+function repairEmpty(n: number, d: number, K: number, x: Float64Array, centres: Float64Array, st: LloydState): void {
+  const { own, labels, counts, upper, lower } = st;
   for (let k = 0; k < K; k++) {
     if (counts[k] > 0) continue;
     let far = -1;
@@ -555,7 +564,7 @@ function repairEmpty(
       }
     }
     if (far < 0) break;
-    moveSample(far, labels[far], k);
+    moveSample(x, d, st, far, labels[far], k);
     own[far] = 0;
     upper[far] = 0;
     lower[far] = 0; // its old centre may now be the nearest other one: recompute next pass

@@ -136,6 +136,112 @@ function diffSquared(pb: string): string {
         (local.set $s (f64.add (local.get $s) (f64.mul (local.get $t) (local.get $t))))))`;
 }
 
+/** sums row at $ps op= x row at $px (op: add | sub), two lanes at a time, then the odd tail. */
+function rowUpdate(op: 'add' | 'sub'): string {
+  return `(local.set $l (i32.const 0))
+          (block $uend_${op} (loop $uloop_${op} (br_if $uend_${op} (i32.ge_u (local.get $l) (local.get $k2)))
+            (v128.store (i32.add (local.get $ps) (i32.shl (local.get $l) (i32.const 3)))
+              (f64x2.${op} (v128.load (i32.add (local.get $ps) (i32.shl (local.get $l) (i32.const 3)))) (v128.load (i32.add (local.get $px) (i32.shl (local.get $l) (i32.const 3))))))
+            (local.set $l (i32.add (local.get $l) (i32.const 2)))
+            (br $uloop_${op})))
+          (if (i32.and (local.get $k) (i32.const 1)) (then
+            (f64.store (i32.add (local.get $ps) (i32.shl (local.get $k2) (i32.const 3)))
+              (f64.${op} (f64.load (i32.add (local.get $ps) (i32.shl (local.get $k2) (i32.const 3)))) (f64.load (i32.add (local.get $px) (i32.shl (local.get $k2) (i32.const 3))))))))`;
+}
+
+/** Address of element $idx of the array at $base (shift 2: i32, 3: f64). */
+function at(base: string, idx: string, shift: 2 | 3): string {
+  return `(i32.add (local.get ${base}) (i32.shl ${idx} (i32.const ${shift})))`;
+}
+
+function lloydPass(): string {
+  const r = '(local.get $r)';
+  return `;; lloydPass: one assignment pass of Lloyd's algorithm over m rows of x (k columns) and the
+  ;; centres (c row-major n x k; ct, c2 transposed and padded to np for the distance kernel), with
+  ;; the run's state in module memory: labels, upper, lower, own (per row), sums (n x k), counts,
+  ;; half, moved (per centre), and todo (the rows to assign). mode 0: every row, from no labels;
+  ;; mode 1: Hamerly bounds pick the rows (see kmeans.ts, boundScan and boundFilter); mode 2: bounds
+  ;; updated, every row assigned (plain Lloyd). Changed rows move between the member sums.
+  ;; Returns the number of rows whose label changed.
+  (func (export "lloydPass") (param $x i32) (param $x2 i32) (param $m i32) (param $k i32)
+      (param $ct i32) (param $c2 i32) (param $np i32) (param $c i32)
+      (param $labels i32) (param $upper i32) (param $lower i32) (param $own i32)
+      (param $todo i32) (param $sums i32) (param $counts i32) (param $half i32) (param $moved i32)
+      (param $mode i32) (param $m1 f64) (param $m2 f64) (param $mk i32) (param $slack0 f64) (param $slackUnit f64)
+      (param $dbuf i32) (param $lab i32) (param $best i32) (param $second i32) (result i32)
+    (local $r i32) (local $q i32) (local $cnt i32) (local $ch i32) (local $a i32) (local $bk i32) (local $old i32)
+    (local $pc i32) (local $l i32) (local $k2 i32) (local $pa i32) (local $ps i32) (local $px i32) (local $st i32) (local $cm i32) (local $useIdx i32)
+    (local $acc v128) (local $e v128) (local $s f64) (local $t f64) (local $u f64) (local $lw f64) (local $z f64) (local $pcnt i32)
+    (local.set $k2 (i32.and (local.get $k) (i32.const -2)))
+    (if (i32.eqz (local.get $mode))
+      (then (local.set $cnt (local.get $m)))
+      (else
+        (local.set $r (i32.const 0))
+        (block $send (loop $sloop (br_if $send (i32.ge_s ${r} (local.get $m)))
+          (local.set $a (i32.load ${at('$labels', r, 2)}))
+          (local.set $lw (f64.sub (f64.load ${at('$lower', r, 3)}) (select (local.get $m2) (local.get $m1) (i32.eq (local.get $a) (local.get $mk)))))
+          (f64.store ${at('$lower', r, 3)} (local.get $lw))
+          (local.set $u (f64.add (f64.load ${at('$upper', r, 3)}) (f64.load ${at('$moved', '(local.get $a)', 3)})))
+          (if (i32.eq (local.get $mode) (i32.const 1)) (then
+            ;; bound z = max(l, half[a]) squared with its margin, and the rounding slack of this row
+            (local.set $z (f64.max (local.get $lw) (f64.load ${at('$half', '(local.get $a)', 3)})))
+            (local.set $z (f64.mul (f64.mul (local.get $z) (local.get $z)) (f64.const ${1 - 2e-9})))
+            (local.set $t (f64.mul (local.get $slackUnit) (f64.load ${at('$x2', r, 3)})))
+            (if (f64.ge (f64.add (f64.add (f64.mul (local.get $u) (local.get $u)) (local.get $slack0)) (local.get $t)) (local.get $z)) (then
+              ;; the upper bound does not settle it: exact distance to the own centre, then the same test
+              (local.set $lw (local.get $t))
+              (local.set $pa (i32.add (local.get $x) (i32.shl (i32.mul ${r} (local.get $k)) (i32.const 3))))
+              (local.set $pc (i32.add (local.get $c) (i32.shl (i32.mul (local.get $a) (local.get $k)) (i32.const 3))))
+              ${diffSquared('$pc')}
+              (f64.store ${at('$own', r, 3)} (local.get $s))
+              (local.set $u (f64.sqrt (local.get $s)))
+              (i32.store ${at('$todo', '(local.get $cnt)', 2)} ${r})
+              (local.set $cnt (i32.add (local.get $cnt) (f64.ge (f64.add (f64.add (local.get $s) (local.get $slack0)) (local.get $lw)) (local.get $z))))))))
+          (f64.store ${at('$upper', r, 3)} (local.get $u))
+          (local.set $r (i32.add ${r} (i32.const 1)))
+          (br $sloop)))
+        (if (i32.eq (local.get $mode) (i32.const 2)) (then (local.set $cnt (local.get $m))))))
+    (local.set $useIdx (i32.eq (local.get $mode) (i32.const 1)))
+    (block $aend (loop $aloop (br_if $aend (i32.ge_s (local.get $st) (local.get $cnt)))
+      (local.set $cm (i32.sub (local.get $cnt) (local.get $st)))
+      (if (i32.gt_s (local.get $cm) (i32.const 32)) (then (local.set $cm (i32.const 32))))
+      (if (local.get $useIdx)
+        (then (call $kernelDistIdx (local.get $x) (local.get $cm) (local.get $k) (local.get $ct) (local.get $np) (local.get $dbuf)
+          (i32.const 1) (local.get $x2) (local.get $c2) ${at('$todo', '(local.get $st)', 2)}))
+        (else (call $kernelDist (i32.add (local.get $x) (i32.shl (i32.mul (local.get $st) (local.get $k)) (i32.const 3))) (local.get $cm) (local.get $k) (local.get $ct) (local.get $np) (local.get $dbuf)
+          (i32.const 1) ${at('$x2', '(local.get $st)', 3)} (local.get $c2) (i32.const 0))))
+      (call $argmin2 (local.get $dbuf) (local.get $cm) (local.get $np) (local.get $lab) (local.get $best) (local.get $second))
+      (local.set $q (i32.const 0))
+      (block $qend (loop $qloop (br_if $qend (i32.ge_s (local.get $q) (local.get $cm)))
+        (local.set $r (if (result i32) (local.get $useIdx)
+          (then (i32.load ${at('$todo', '(i32.add (local.get $st) (local.get $q))', 2)}))
+          (else (i32.add (local.get $st) (local.get $q)))))
+        (local.set $bk (i32.load ${at('$lab', '(local.get $q)', 2)}))
+        (local.set $old (i32.load ${at('$labels', r, 2)}))
+        (if (i32.ne (local.get $old) (local.get $bk)) (then
+          (local.set $ch (i32.add (local.get $ch) (i32.const 1)))
+          (local.set $px (i32.add (local.get $x) (i32.shl (i32.mul ${r} (local.get $k)) (i32.const 3))))
+          (if (i32.ge_s (local.get $old) (i32.const 0)) (then
+            (local.set $pcnt ${at('$counts', '(local.get $old)', 2)})
+            (i32.store (local.get $pcnt) (i32.sub (i32.load (local.get $pcnt)) (i32.const 1)))
+            (local.set $ps (i32.add (local.get $sums) (i32.shl (i32.mul (local.get $old) (local.get $k)) (i32.const 3))))
+            ${rowUpdate('sub')}))
+          (local.set $pcnt ${at('$counts', '(local.get $bk)', 2)})
+          (i32.store (local.get $pcnt) (i32.add (i32.load (local.get $pcnt)) (i32.const 1)))
+          (local.set $ps (i32.add (local.get $sums) (i32.shl (i32.mul (local.get $bk) (local.get $k)) (i32.const 3))))
+          ${rowUpdate('add')}
+          (i32.store ${at('$labels', r, 2)} (local.get $bk))))
+        (local.set $s (f64.load ${at('$best', '(local.get $q)', 3)}))
+        (f64.store ${at('$own', r, 3)} (local.get $s))
+        (f64.store ${at('$upper', r, 3)} (f64.sqrt (local.get $s)))
+        (f64.store ${at('$lower', r, 3)} (f64.sqrt (f64.load ${at('$second', '(local.get $q)', 3)})))
+        (local.set $q (i32.add (local.get $q) (i32.const 1)))
+        (br $qloop)))
+      (local.set $st (i32.add (local.get $st) (i32.const 32)))
+      (br $aloop)))
+    (local.get $ch))`;
+}
+
 function kernel(variant: Variant = 'generic'): string {
   const locals = ['(local $i i32) (local $j i32) (local $pb i32) (local $pend i32) (local $rowa i32) (local $rowb i32)', '(local $q0 i32) (local $q1 i32) (local $q2 i32) (local $q3 i32)', '(local $x v128) (local $y0 v128) (local $y1 v128)'];
   for (let r = 0; r < 4; r++) locals.push(`(local $s${r}0 v128) (local $s${r}1 v128)`);
@@ -175,6 +281,7 @@ const wat = `;; Generated by src/model/wasm/build.ts; edit that file, not this o
 ;; cholSolve(l, p, b, h):               B := (L L^T)^-1 B in place (h even)
 ;; assign(a, idx, useIdx, m, k, b, n, a2, b2, dbuf, lab, best, second): distances + argmin2 in chunks
 ;; centreGaps(c, n, k, half):          half the distance from each centre to the nearest other one
+;; lloydPass(...):                      one pruned or full assignment pass of Lloyd's algorithm (state in memory)
 ;; expNeg(g, d, m, k, out):             out[i,j] = exp(-g[j] d[i,j])   (k even)
 ;; Pointers are byte offsets into the exported memory (16-byte aligned).
 (module
@@ -404,6 +511,7 @@ const wat = `;; Generated by src/model/wasm/build.ts; edit that file, not this o
         (br $bloop)))
       (local.set $a (i32.add (local.get $a) (i32.const 1)))
       (br $aloop))))
+  ${lloydPass()}
 )
 `;
 

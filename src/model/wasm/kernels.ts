@@ -5,8 +5,38 @@
  */
 import { KERNELS_WASM_BASE64 } from './kernels.wasm.ts';
 
+/** State of one Lloyd run (per row and per centre), where the assignment passes keep it. */
+export interface LloydState {
+  labels: Int32Array;
+  /** Squared distance to the own centre (exact for every row only after exactOwn). */
+  own: Float64Array;
+  /** Upper bound on the distance to the own centre, lower bound on the distance to the second nearest. */
+  upper: Float64Array;
+  lower: Float64Array;
+  /** Member sums (n x k) and counts per centre. */
+  sums: Float64Array;
+  counts: Int32Array;
+}
+
+/**
+ * Assignment passes of one Lloyd run (see kmeans.ts for the bounds). pass() mode 0: every row,
+ * from no labels; 1: pruned by the bounds; 2: bounds updated, every row assigned (plain Lloyd).
+ * It returns the number of changed labels and keeps sums and counts current.
+ */
+export interface LloydWork {
+  /** The state arrays; views into module memory may move, so fetch them again after any call. */
+  views(): LloydState;
+  /** No labels, zero sums and counts. */
+  reset(): void;
+  pass(c: Float64Array, c2: Float64Array, moved: Float64Array, mode: 0 | 1 | 2, m1: number, m2: number, mk: number, slack0: number, slackUnit: number): number;
+  /** own = exact squared distance of every row to its centre, upper = its square root. */
+  exactOwn(c: Float64Array): void;
+}
+
 /** Rows kept in the module's memory across calls (one k-means run): distances and assignment. */
 export interface ResidentRows {
+  /** The state and passes of a Lloyd run with n centres (one at a time per resident). */
+  lloydWork(n: number): LloydWork;
   /** out (m x n) = squared distances of the rows to the n centres. */
   dist2(c: Float64Array, c2: Float64Array, n: number, out: Float64Array): Float64Array;
   /**
@@ -67,6 +97,9 @@ interface Exports {
   cholesky(a: number, p: number): number;
   assign(a: number, idx: number, useIdx: number, m: number, k: number, b: number, n: number, a2: number, b2: number, dbuf: number, lab: number, best: number, second: number): void;
   centreGaps(c: number, n: number, k: number, half: number): void;
+  lloydPass(x: number, x2: number, m: number, k: number, ct: number, c2: number, np: number, c: number,
+    labels: number, upper: number, lower: number, own: number, todo: number, sums: number, counts: number, half: number, moved: number,
+    mode: number, m1: number, m2: number, mk: number, slack0: number, slackUnit: number, dbuf: number, lab: number, best: number, second: number): number;
   cholSolve(l: number, p: number, b: number, h: number): void;
   expNeg(g: number, d: number, m: number, k: number, out: number): void;
 }
@@ -126,7 +159,9 @@ export function loadSimdKernels(): SimdKernels | null {
       const token = {};
       const px = 0;
       const px2 = align16(px + m * k * 8);
-      const base = align16(px2 + m * 8);
+      const stateAt = align16(px2 + m * 8);
+      /** Start of the scratch space of the calls below (after a Lloyd run's state, when one exists). */
+      let base = stateAt;
       const upload = (): void => {
         reserve(base);
         f64.set(x.subarray(0, m * k), px / 8);
@@ -191,6 +226,67 @@ export function loadSimdKernels(): SimdKernels | null {
           if (rows) new Int32Array(mem.buffer, pi, count).set(rows.subarray(0, count));
           ex.assign(px, pi, rows ? 1 : 0, count, k, pb, np, px2, pb2, pd, pl, p1, p2);
           return { labels: new Int32Array(mem.buffer, pl, count), best: new Float64Array(mem.buffer, p1, count), second: new Float64Array(mem.buffer, p2, count) };
+        },
+        lloydWork(n) {
+          const np = n + (n & 1);
+          // State: labels, upper, lower, own, todo (per row); sums, counts, half, moved, centres
+          // (row-major, then transposed with norms for the kernel); chunk scratch of 32 rows.
+          let o = stateAt;
+          const take = (bytes: number): number => {
+            const at = o;
+            o = align16(o + bytes);
+            return at;
+          };
+          const pLab = take(m * 4), pUp = take(m * 8), pLo = take(m * 8), pOwn = take(m * 8), pTodo = take(m * 4);
+          const pSums = take(n * k * 8), pCnt = take(n * 4), pHalf = take(n * 8), pMoved = take(n * 8), pC = take(n * k * 8);
+          const pCt = take(k * np * 8), pC2 = take(np * 8), pD = take(32 * np * 8), pL = take(32 * 4), pB = take(32 * 8), pS = take(32 * 8);
+          base = o;
+          reserve(base);
+          if (owner !== token) upload();
+          let buf: ArrayBuffer | null = null;
+          let state: LloydState | null = null;
+          const views = (): LloydState => {
+            if (state === null || buf !== mem.buffer) {
+              buf = mem.buffer;
+              state = {
+                labels: new Int32Array(buf, pLab, m),
+                own: new Float64Array(buf, pOwn, m),
+                upper: new Float64Array(buf, pUp, m),
+                lower: new Float64Array(buf, pLo, m),
+                sums: new Float64Array(buf, pSums, n * k),
+                counts: new Int32Array(buf, pCnt, n),
+              };
+            }
+            return state;
+          };
+          const mine = (): void => {
+            if (owner !== token) throw new Error('lloydWork: the rows were evicted during a Lloyd run');
+          };
+          return {
+            views,
+            reset() {
+              if (owner !== token) upload();
+              const v = views();
+              v.labels.fill(-1);
+              v.sums.fill(0);
+              v.counts.fill(0);
+            },
+            pass(c, c2, moved, mode, m1, m2, mk, slack0, slackUnit) {
+              mine();
+              f64.set(c.subarray(0, n * k), pC / 8);
+              putCentres(c, c2, n, np, k, pCt, pC2);
+              f64.set(moved.subarray(0, n), pMoved / 8);
+              if (mode !== 0) ex.centreGaps(pC, n, k, pHalf);
+              return ex.lloydPass(px, px2, m, k, pCt, pC2, np, pC, pLab, pUp, pLo, pOwn, pTodo, pSums, pCnt, pHalf, pMoved, mode, m1, m2, mk, slack0, slackUnit, pD, pL, pB, pS);
+            },
+            exactOwn(c) {
+              mine();
+              f64.set(c.subarray(0, n * k), pC / 8);
+              ex.ownDist(px, 0, 0, m, k, pC, pLab, pOwn);
+              const v = views();
+              for (let i = 0; i < m; i++) v.upper[i] = Math.sqrt(v.own[i]);
+            },
+          };
         },
         centreGaps(c, n, half) {
           const pc = base;
