@@ -3,7 +3,7 @@
  * Form: |x - c|^2 = |x|^2 + |c|^2 - 2 x.c, clipped at 0 (cancellation can give tiny negatives).
  * Runs the WebAssembly SIMD kernel when the runtime has it, else the scalar loops below.
  */
-import { loadSimdKernels, type SimdKernels } from './wasm/kernels.ts';
+import { loadSimdKernels, type LloydWork, type SimdKernels } from './wasm/kernels.ts';
 
 let simd: SimdKernels | null | undefined;
 let wanted: 'auto' | 'js' = 'auto';
@@ -118,8 +118,9 @@ export function dist2All(
 
 /**
  * One k-means distance pass over rows prepared once (as Lloyd's algorithm keeps them): given the
- * centres, either all squared distances (n x K, into a reused buffer) or only what an assignment
- * needs (nearest centre, its distance, the second smallest). Returns a checksum of the result.
+ * centres, either all squared distances (n x K, into a reused buffer) or a plain Lloyd assignment
+ * pass in the module (nearest and second nearest centre of every row, bounds and member sums).
+ * Returns a checksum of the result.
  */
 export type DistancePassKernel = (c: Float64Array, nCentres: number) => number;
 
@@ -148,8 +149,23 @@ export function distanceKernels(): { active: string; all: [string, (x: Float64Ar
       };
     }]);
     all.push(['wasm-asg', (x, n, d) => {
+      // A plain Lloyd assignment pass (every row; the first call per K sets the labels up).
       const res = s.resident(x, rowNorms2(x, n, d), n, d);
-      return (c, k) => res.assign(null, n, c, rowNorms2(c, k, d), k).second[n - 1];
+      let work: LloydWork | null = null;
+      let kWork = -1;
+      let moved = new Float64Array(0);
+      return (c, k) => {
+        const c2 = rowNorms2(c, k, d);
+        if (work === null || kWork !== k) {
+          work = res.lloydWork(k);
+          work.reset();
+          moved = new Float64Array(k);
+          work.pass(c, c2, moved, 0, 0, 0, -1, 0, 0);
+          kWork = k;
+        }
+        work.pass(c, c2, moved, 2, 0, 0, -1, 0, 0);
+        return work.views().lower[n - 1];
+      };
     }]);
   }
   return { active: s ? 'wasm-simd' : 'js-scalar', all };

@@ -124,17 +124,11 @@ interface DistancePass {
   all(c: Float64Array, c2: Float64Array, K: number, out: Float64Array): Float64Array;
   /** k-means++ step (see SimdKernels.seedUpdate); minD2 is valid until the next call. */
   seed(centre: Float64Array, first: boolean): { total: number; minD2: Float64Array };
-  /** Squared distance to its own centre (difference form) of rows[0..count), or of every row when rows is null. */
-  own(c: Float64Array, K: number, labels: Int32Array, out: Float64Array, rows: Int32Array | null, count: number): Float64Array;
-  /** Nearest centre, its squared distance and the second smallest one, of rows[0..count) (all when null). */
-  assign(rows: Int32Array | null, count: number, c: Float64Array, c2: Float64Array, K: number): Assignment;
-  /** Half the distance from each centre to the nearest other centre. */
-  gaps(c: Float64Array, K: number, half: Float64Array): Float64Array;
   /** State and assignment passes of a Lloyd run with K centres. */
   lloyd(K: number): LloydWork;
 }
 
-/** Views valid until the next call on the pass. */
+/** Nearest centre, its squared distance and the second smallest one, per listed row. */
 interface Assignment {
   labels: Int32Array;
   best: Float64Array;
@@ -147,96 +141,43 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
     const res = sk.resident(x, x2, n, d);
     return {
       all: (c, c2, K, out) => res.dist2(c, c2, K, out),
-      own: (c, K, labels, out, rows, count) => res.ownDist2(c, K, labels, out, rows, count),
       seed: (centre, first) => res.seedUpdate(centre, first),
-      assign: (rows, count, c, c2, K) => res.assign(rows, count, c, c2, K),
-      gaps: (c, K, half) => res.centreGaps(c, K, half),
       lloyd: (K) => res.lloydWork(K),
     };
   }
-  let buf = new Float64Array(0);
-  let found: Assignment = { labels: new Int32Array(0), best: new Float64Array(0), second: new Float64Array(0) };
-  const pass: DistancePass = {
+  const minD2 = new Float64Array(n);
+  return {
     all(c, c2, K, out) {
       dist2Scalar(x, x2, n, d, c, c2, K, out);
       return out;
     },
-    seed: (() => {
-      const minD2 = new Float64Array(n);
-      return (centre: Float64Array, first: boolean) => {
-        let total = 0;
-        for (let i = 0; i < n; i++) {
-          let s = 0;
-          const o = i * d;
-          for (let j = 0; j < d; j++) {
-            const e = x[o + j] - centre[j];
-            s += e * e;
-          }
-          if (first || s < minD2[i]) minD2[i] = s;
-          total += minD2[i];
-        }
-        return { total, minD2 };
-      };
-    })(),
-    own(c, _K, labels, out, rows, count) {
-      for (let t = 0; t < count; t++) {
-        const i = rows ? rows[t] : t;
+    seed(centre, first) {
+      let total = 0;
+      for (let i = 0; i < n; i++) {
         let s = 0;
-        const xo = i * d;
-        const co = labels[i] * d;
+        const o = i * d;
         for (let j = 0; j < d; j++) {
-          const e = x[xo + j] - c[co + j];
+          const e = x[o + j] - centre[j];
           s += e * e;
         }
-        out[t] = s;
+        if (first || s < minD2[i]) minD2[i] = s;
+        total += minD2[i];
       }
-      return out;
+      return { total, minD2 };
     },
-    assign(rows, count, c, c2, K) {
-      if (buf.length < count * K) buf = new Float64Array(n * K);
-      if (found.labels.length < count) found = { labels: new Int32Array(n), best: new Float64Array(n), second: new Float64Array(n) };
-      const dist = buf.subarray(0, count * K);
-      if (rows) {
-        // Distance rows of the listed samples only (gathered, then the scalar kernel).
-        const g = new Float64Array(count * d);
-        const g2 = new Float64Array(count);
-        for (let i = 0; i < count; i++) {
-          g.set(x.subarray(rows[i] * d, (rows[i] + 1) * d), i * d);
-          g2[i] = x2[rows[i]];
-        }
-        dist2Scalar(g, g2, count, d, c, c2, K, dist);
-      } else pass.all(c, c2, K, dist);
-      argmin2Rows(dist, count, K, found);
-      return found;
-    },
-    gaps(c, K, half) {
-      half.fill(Infinity);
-      for (let k = 0; k < K; k++) {
-        for (let k2 = k + 1; k2 < K; k2++) {
-          let s = 0;
-          for (let j = 0; j < d; j++) {
-            const e = c[k * d + j] - c[k2 * d + j];
-            s += e * e;
-          }
-          const h = 0.5 * Math.sqrt(s);
-          if (h < half[k]) half[k] = h;
-          if (h < half[k2]) half[k2] = h;
-        }
-      }
-      return half;
-    },
-    lloyd: (K) => jsLloydWork(x, x2, n, d, K, pass),
+    lloyd: (K) => scalarLloydWork(x, x2, n, d, K),
   };
-  return pass;
 }
 
-/** LloydWork on plain arrays, with the scalar passes (the same steps as the module's lloydPass). */
-function jsLloydWork(x: Float64Array, x2: Float64Array, n: number, d: number, K: number, pass: DistancePass): LloydWork {
+/** LloydWork on plain arrays with scalar loops: the same steps and tests as the module's lloydPass. */
+function scalarLloydWork(x: Float64Array, x2: Float64Array, n: number, d: number, K: number): LloydWork {
   const st: LloydState = { labels: new Int32Array(n), own: new Float64Array(n), upper: new Float64Array(n), lower: new Float64Array(n), sums: new Float64Array(K * d), counts: new Int32Array(K) };
   const half = new Float64Array(K);
   const check = new Int32Array(n);
   const todo = new Int32Array(n);
   const checked = new Float64Array(n);
+  const found: Assignment = { labels: new Int32Array(n), best: new Float64Array(n), second: new Float64Array(n) };
+  const dist = new Float64Array(n * K);
   return {
     views: () => st,
     reset() {
@@ -248,19 +189,63 @@ function jsLloydWork(x: Float64Array, x2: Float64Array, n: number, d: number, K:
       let rows: Int32Array | null = null;
       let count = n;
       if (mode === 1) {
-        pass.gaps(c, K, half);
+        centreGaps(c, K, d, half);
         const nCheck = boundScan(n, st.labels, st.lower, st.upper, x2, half, moved, m1, m2, mk, slack0, slackUnit, check);
-        if (nCheck > 0) pass.own(c, K, st.labels, checked, check, nCheck);
+        ownDistances(x, d, c, st.labels, checked, check, nCheck);
         count = boundFilter(nCheck, check, checked, st.labels, st.lower, st.upper, st.own, x2, half, slack0, slackUnit, todo);
         rows = todo;
       } else if (mode === 2) shrinkAll(n, st.labels, st.lower, st.upper, moved, m1, m2, mk);
-      return count > 0 ? applyAssignment(pass.assign(rows, count, c, c2, K), rows, count, x, d, st) : 0;
+      if (count === 0) return 0;
+      if (rows) {
+        // Distance rows of the listed samples only (gathered, then the scalar kernel).
+        const g = new Float64Array(count * d);
+        const g2 = new Float64Array(count);
+        for (let t = 0; t < count; t++) {
+          g.set(x.subarray(rows[t] * d, (rows[t] + 1) * d), t * d);
+          g2[t] = x2[rows[t]];
+        }
+        dist2Scalar(g, g2, count, d, c, c2, K, dist);
+      } else dist2Scalar(x, x2, n, d, c, c2, K, dist);
+      argmin2Rows(dist, count, K, found);
+      return applyAssignment(found, rows, count, x, d, st);
     },
     exactOwn(c) {
-      pass.own(c, K, st.labels, st.own, null, n);
+      ownDistances(x, d, c, st.labels, st.own, null, n);
       for (let i = 0; i < n; i++) st.upper[i] = Math.sqrt(st.own[i]);
     },
   };
+}
+
+/** out[t] = |x_i - c_labels[i]|^2 (difference form) for i = rows[t] (or t when rows is null), t < count. */
+function ownDistances(x: Float64Array, d: number, c: Float64Array, labels: Int32Array, out: Float64Array, rows: Int32Array | null, count: number): void {
+  for (let t = 0; t < count; t++) {
+    const i = rows ? rows[t] : t;
+    let s = 0;
+    const xo = i * d;
+    const co = labels[i] * d;
+    for (let j = 0; j < d; j++) {
+      const e = x[xo + j] - c[co + j];
+      s += e * e;
+    }
+    out[t] = s;
+  }
+}
+
+/** half[k] = half the distance from centre k to the nearest other centre (Infinity for one centre). */
+function centreGaps(c: Float64Array, K: number, d: number, half: Float64Array): void {
+  half.fill(Infinity);
+  for (let k = 0; k < K; k++) {
+    for (let k2 = k + 1; k2 < K; k2++) {
+      let s = 0;
+      for (let j = 0; j < d; j++) {
+        const e = c[k * d + j] - c[k2 * d + j];
+        s += e * e;
+      }
+      const h = 0.5 * Math.sqrt(s);
+      if (h < half[k]) half[k] = h;
+      if (h < half[k2]) half[k2] = h;
+    }
+  }
 }
 
 /** Takes the nearest centres found for rows[0..count) (all when null) into the state; returns how many labels changed. */

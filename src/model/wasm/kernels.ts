@@ -44,19 +44,6 @@ export interface ResidentRows {
    * = when first). Returns the sum and a view of minD2, valid until the next kernel call.
    */
   seedUpdate(c: Float64Array, first: boolean): { total: number; minD2: Float64Array };
-  /**
-   * out[t] = |x_r - c_labels[r]|^2 in the difference form (c is n x k, row-major) for the rows
-   * r = rows[t], t < count, or for every row (t = r) when rows is null.
-   */
-  ownDist2(c: Float64Array, n: number, labels: Int32Array, out: Float64Array, rows?: Int32Array | null, count?: number): Float64Array;
-  /**
-   * Nearest centre of the rows rows[0..count) (all rows when rows is null): label, squared
-   * distance, and squared distance to the second nearest (first on ties, like a scan in order).
-   * The arrays are views into the module's memory, valid until the next kernel call.
-   */
-  assign(rows: Int32Array | null, count: number, c: Float64Array, c2: Float64Array, n: number): { labels: Int32Array; best: Float64Array; second: Float64Array };
-  /** half[a] = min over b != a of |c_a - c_b| / 2 (difference form; c is n x k). */
-  centreGaps(c: Float64Array, n: number, half: Float64Array): Float64Array;
 }
 
 export interface SimdKernels {
@@ -92,10 +79,9 @@ interface Exports {
   gemmAddUpper(a: number, m: number, k: number, b: number, n: number, c: number): void;
   dist2(a: number, m: number, k: number, b: number, n: number, a2: number, b2: number, c: number): void;
   transpose(src: number, rows: number, cols: number, stride: number, dst: number): void;
-  ownDist(x: number, idx: number, useIdx: number, m: number, k: number, c: number, labels: number, out: number): void;
+  ownDist(x: number, m: number, k: number, c: number, labels: number, out: number): void;
   seedUpdate(x: number, m: number, k: number, c: number, mind: number, first: number): number;
   cholesky(a: number, p: number): number;
-  assign(a: number, idx: number, useIdx: number, m: number, k: number, b: number, n: number, a2: number, b2: number, dbuf: number, lab: number, best: number, second: number): void;
   centreGaps(c: number, n: number, k: number, half: number): void;
   lloydPass(x: number, x2: number, m: number, k: number, ct: number, c2: number, np: number, c: number,
     labels: number, upper: number, lower: number, own: number, todo: number, sums: number, counts: number, half: number, moved: number,
@@ -197,36 +183,6 @@ export function loadSimdKernels(): SimdKernels | null {
           const total = ex.seedUpdate(px, m, k, pc, pm, first ? 1 : 0);
           return { total, minD2: f64.subarray(pm / 8, pm / 8 + m) };
         },
-        ownDist2(c, n, labels, out, rows = null, count = m) {
-          const pc = base;
-          const pl = align16(pc + n * k * 8);
-          const pi = align16(pl + m * 4);
-          const po = align16(pi + (rows ? count * 4 : 0));
-          reserve(po + count * 8);
-          if (owner !== token) upload();
-          f64.set(c.subarray(0, n * k), pc / 8);
-          new Int32Array(mem.buffer, pl, m).set(labels.subarray(0, m));
-          if (rows) new Int32Array(mem.buffer, pi, count).set(rows.subarray(0, count));
-          ex.ownDist(px, pi, rows ? 1 : 0, count, k, pc, pl, po);
-          out.set(f64.subarray(po / 8, po / 8 + count));
-          return out;
-        },
-        assign(rows, count, c, c2, n) {
-          const np = n + (n & 1);
-          const pb = base;
-          const pb2 = align16(pb + k * np * 8);
-          const pi = align16(pb2 + np * 8);
-          const pd = align16(pi + count * 4);
-          const pl = align16(pd + 32 * np * 8);
-          const p1 = align16(pl + count * 4);
-          const p2 = align16(p1 + count * 8);
-          reserve(p2 + count * 8);
-          if (owner !== token) upload();
-          putCentres(c, c2, n, np, k, pb, pb2);
-          if (rows) new Int32Array(mem.buffer, pi, count).set(rows.subarray(0, count));
-          ex.assign(px, pi, rows ? 1 : 0, count, k, pb, np, px2, pb2, pd, pl, p1, p2);
-          return { labels: new Int32Array(mem.buffer, pl, count), best: new Float64Array(mem.buffer, p1, count), second: new Float64Array(mem.buffer, p2, count) };
-        },
         lloydWork(n) {
           const np = n + (n & 1);
           // State: labels, upper, lower, own, todo (per row); sums, counts, half, moved, centres
@@ -282,20 +238,11 @@ export function loadSimdKernels(): SimdKernels | null {
             exactOwn(c) {
               mine();
               f64.set(c.subarray(0, n * k), pC / 8);
-              ex.ownDist(px, 0, 0, m, k, pC, pLab, pOwn);
+              ex.ownDist(px, m, k, pC, pLab, pOwn);
               const v = views();
               for (let i = 0; i < m; i++) v.upper[i] = Math.sqrt(v.own[i]);
             },
           };
-        },
-        centreGaps(c, n, half) {
-          const pc = base;
-          const ph = align16(pc + n * k * 8);
-          reserve(ph + n * 8);
-          f64.set(c.subarray(0, n * k), pc / 8);
-          ex.centreGaps(pc, n, k, ph);
-          half.set(f64.subarray(ph / 8, ph / 8 + n));
-          return half;
         },
       };
     },

@@ -4,10 +4,9 @@
 ;; gemmAddUpper(a, m, k, b, n, c):       C += A B on and above the diagonal (A B symmetric)
 ;; dist2(a, m, k, b, n, a2, b2, c):      C[i,j] = max(0, a2[i] + b2[j] - 2 (A B)[i,j])
 ;; transpose(src, rows, cols, stride, dst): dst = src^T
-;; ownDist(x, idx, useIdx, m, k, c, labels, out): out[t] = |x_r - c_labels[r]|^2, r = idx[t] or t
+;; ownDist(x, m, k, c, labels, out):    out[i] = |x_i - c_labels[i]|^2
 ;; cholesky(a, p) -> 0 | i + 1:          in-place lower Cholesky factor (row-major)
 ;; cholSolve(l, p, b, h):               B := (L L^T)^-1 B in place (h even)
-;; assign(a, idx, useIdx, m, k, b, n, a2, b2, dbuf, lab, best, second): distances + argmin2 in chunks
 ;; centreGaps(c, n, k, half):          half the distance from each centre to the nearest other one
 ;; lloydPass(...):                      one pruned or full assignment pass of Lloyd's algorithm (state in memory)
 ;; expNeg(g, d, m, k, out):             out[i,j] = exp(-g[j] d[i,j])   (k even)
@@ -407,15 +406,13 @@
   (func (export "gemmAdd") (param $a i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32) (param $c i32)
     (call $kernel (local.get $a) (local.get $m) (local.get $k) (local.get $b) (local.get $n) (local.get $c)
       (i32.const 2) (i32.const 0) (i32.const 0) (i32.const 0)))
-  ;; out[t] = |x_r - c_{labels[r]}|^2 for t < m, r = idx[t] when useIdx else t (difference form;
-  ;; x row-major with k columns, c row-major, labels i32 over all rows).
-  (func (export "ownDist") (param $x i32) (param $idx i32) (param $useIdx i32) (param $m i32) (param $k i32) (param $c i32) (param $labels i32) (param $out i32)
-    (local $i i32) (local $r i32) (local $l i32) (local $k2 i32) (local $pa i32) (local $pc i32) (local $acc v128) (local $e v128) (local $s f64) (local $t f64)
+  ;; out[i] = |x_i - c_{labels[i]}|^2 (difference form; x m x k, c row-major, labels i32).
+  (func (export "ownDist") (param $x i32) (param $m i32) (param $k i32) (param $c i32) (param $labels i32) (param $out i32)
+    (local $i i32) (local $l i32) (local $k2 i32) (local $pa i32) (local $pc i32) (local $acc v128) (local $e v128) (local $s f64) (local $t f64)
     (local.set $k2 (i32.and (local.get $k) (i32.const -2)))
     (block $iend (loop $iloop (br_if $iend (i32.ge_s (local.get $i) (local.get $m)))
-      (local.set $r (if (result i32) (local.get $useIdx) (then (i32.load (i32.add (local.get $idx) (i32.shl (local.get $i) (i32.const 2))))) (else (local.get $i))))
-      (local.set $pa (i32.add (local.get $x) (i32.shl (i32.mul (local.get $r) (local.get $k)) (i32.const 3))))
-      (local.set $pc (i32.add (local.get $c) (i32.shl (i32.mul (i32.load (i32.add (local.get $labels) (i32.shl (local.get $r) (i32.const 2)))) (local.get $k)) (i32.const 3))))
+      (local.set $pa (i32.add (local.get $x) (i32.shl (i32.mul (local.get $i) (local.get $k)) (i32.const 3))))
+      (local.set $pc (i32.add (local.get $c) (i32.shl (i32.mul (i32.load (i32.add (local.get $labels) (i32.shl (local.get $i) (i32.const 2)))) (local.get $k)) (i32.const 3))))
       (local.set $acc (f64x2.splat (f64.const 0)))
       (local.set $l (i32.const 0))
       (block $lend (loop $lloop (br_if $lend (i32.ge_u (local.get $l) (local.get $k2)))
@@ -680,26 +677,6 @@
       (f64.store (i32.add (local.get $second) (i32.shl (local.get $i) (i32.const 3))) (local.get $b2))
       (local.set $i (i32.add (local.get $i) (i32.const 1)))
       (br $iloop))))
-  ;; assign(a, idx, useIdx, m, k, b, n, a2, b2, dbuf, lab, best, second): argmin2 of the squared
-  ;; distances of m rows of A (rows idx[0..m) when useIdx) to the n centres in B, in chunks of
-  ;; 32 rows so each chunk's distances (dbuf, 32 x n) are read back from cache.
-  (func (export "assign") (param $a i32) (param $idx i32) (param $useIdx i32) (param $m i32) (param $k i32) (param $b i32) (param $n i32)
-      (param $a2 i32) (param $b2 i32) (param $dbuf i32) (param $lab i32) (param $best i32) (param $second i32)
-    (local $s i32) (local $cm i32)
-    (block $end (loop $loop (br_if $end (i32.ge_s (local.get $s) (local.get $m)))
-      (local.set $cm (i32.sub (local.get $m) (local.get $s)))
-      (if (i32.gt_s (local.get $cm) (i32.const 32)) (then (local.set $cm (i32.const 32))))
-      (if (local.get $useIdx)
-        (then (call $kernelDistIdx (local.get $a) (local.get $cm) (local.get $k) (local.get $b) (local.get $n) (local.get $dbuf)
-          (i32.const 1) (local.get $a2) (local.get $b2) (i32.add (local.get $idx) (i32.shl (local.get $s) (i32.const 2)))))
-        (else (call $kernelDist (i32.add (local.get $a) (i32.shl (i32.mul (local.get $s) (local.get $k)) (i32.const 3))) (local.get $cm) (local.get $k) (local.get $b) (local.get $n) (local.get $dbuf)
-          (i32.const 1) (i32.add (local.get $a2) (i32.shl (local.get $s) (i32.const 3))) (local.get $b2) (i32.const 0))))
-      (call $argmin2 (local.get $dbuf) (local.get $cm) (local.get $n)
-        (i32.add (local.get $lab) (i32.shl (local.get $s) (i32.const 2)))
-        (i32.add (local.get $best) (i32.shl (local.get $s) (i32.const 3)))
-        (i32.add (local.get $second) (i32.shl (local.get $s) (i32.const 3))))
-      (local.set $s (i32.add (local.get $s) (i32.const 32)))
-      (br $loop))))
   ;; centreGaps(c, n, k, half): half[a] = sqrt(min over b != a of |c_a - c_b|^2) / 2 (c is n x k, row-major).
   (func (export "centreGaps") (param $c i32) (param $n i32) (param $k i32) (param $half i32)
     (local $a i32) (local $b i32) (local $l i32) (local $k2 i32) (local $pa i32) (local $pb i32) (local $acc v128) (local $e v128) (local $s f64) (local $t f64) (local $ha i32) (local $hb i32)

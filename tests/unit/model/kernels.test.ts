@@ -63,20 +63,9 @@ describe('SIMD kernels', () => {
         const { x, c, x2, c2, ref } = distanceFixture(m, n, k, seed, 7);
         const out = simd!.dist2(x, x2, m, c, c2, n, k, new Float64Array(m * n));
         expect(Array.from(out)).toEqual(Array.from(ref));
-        // Resident rows: full pass, own-centre distances, k-means++ step (subsets of rows: the assign test).
+        // Resident rows: full pass and k-means++ step (the Lloyd passes: their own test).
         const res = simd!.resident(x, x2, m, k);
         expect(Array.from(res.dist2(c, c2, n, new Float64Array(m * n)))).toEqual(Array.from(ref));
-        const labels = Int32Array.from({ length: m }, (_, i) => (i * 5) % n);
-        const own = res.ownDist2(c, n, labels, new Float64Array(m));
-        for (let i = 0; i < m; i++) {
-          let s = 0;
-          for (let l = 0; l < k; l++) s += (x[i * k + l] - c[labels[i] * k + l]) ** 2;
-          expect(own[i]).toBeCloseTo(s, 10);
-        }
-        // A row subset (every third row, backwards) gives the same values in list order.
-        const rows = Int32Array.from({ length: Math.ceil(m / 3) }, (_, t) => m - 1 - 3 * t);
-        const ownSub = res.ownDist2(c, n, labels, new Float64Array(rows.length), rows, rows.length);
-        for (let t = 0; t < rows.length; t++) expect(ownSub[t]).toBe(own[rows[t]]);
         const step = res.seedUpdate(c.subarray(0, k), true);
         const step2 = res.seedUpdate(c.subarray(k * (n - 1), k * n), false);
         let total = 0;
@@ -97,37 +86,81 @@ describe('SIMD kernels', () => {
     );
   });
 
-  it('assign (distances + nearest / second nearest in the module) and centreGaps equal a scan of the scalar distances', () => {
+  it('lloydWork: a full pass finds the nearest and second nearest centre of every row and the member sums; exactOwn gives the difference-form distances', () => {
     fc.assert(
-      fc.property(shapes, fc.boolean(), ({ m, n, k, seed }, subset) => {
+      fc.property(shapes, ({ m, n, k, seed }) => {
         const { x, c, x2, c2, ref } = distanceFixture(m, n, k, seed, 5);
-        const rows = Int32Array.from({ length: m }, (_, i) => i).filter((i) => !subset || i % 3 !== 1).reverse();
-        const res = simd!.resident(x, x2, m, k);
-        const got = res.assign(subset ? rows : null, subset ? rows.length : m, c, c2, n);
-        const count = subset ? rows.length : m;
-        for (let t = 0; t < count; t++) {
-          const i = subset ? rows[t] : t;
+        const work = simd!.resident(x, x2, m, k).lloydWork(n);
+        work.reset();
+        const changed = work.pass(c, c2, new Float64Array(n), 0, 0, 0, -1, 0, 0);
+        expect(changed).toBe(m); // every row starts without a label
+        const v = work.views();
+        const sums = new Float64Array(n * k);
+        const counts = new Int32Array(n);
+        for (let i = 0; i < m; i++) {
           const row = Array.from(ref.subarray(i * n, (i + 1) * n));
           const best = Math.min(...row);
-          expect(got.labels[t]).toBe(row.indexOf(best));
-          expect(got.best[t]).toBe(best);
-          const rest = row.filter((_, j) => j !== row.indexOf(best));
-          expect(got.second[t]).toBe(rest.length ? Math.min(...rest) : Infinity);
+          const label = row.indexOf(best);
+          expect(v.labels[i]).toBe(label);
+          expect(v.own[i]).toBe(best);
+          expect(v.upper[i]).toBe(Math.sqrt(best));
+          const rest = row.filter((_, j) => j !== label);
+          expect(v.lower[i]).toBe(rest.length ? Math.sqrt(Math.min(...rest)) : Infinity);
+          counts[label]++;
+          for (let j = 0; j < k; j++) sums[label * k + j] += x[i * k + j];
         }
-        const half = res.centreGaps(c, n, new Float64Array(n));
-        for (let a = 0; a < n; a++) {
-          let h = Infinity;
-          for (let b = 0; b < n; b++) {
-            if (b === a) continue;
-            let s2 = 0;
-            for (let j = 0; j < k; j++) s2 += (c[a * k + j] - c[b * k + j]) ** 2;
-            h = Math.min(h, 0.5 * Math.sqrt(s2));
-          }
-          if (h === Infinity) expect(half[a]).toBe(Infinity);
-          else expect(half[a]).toBeCloseTo(h, 12);
+        expect(Array.from(v.counts)).toEqual(Array.from(counts));
+        // Same additions in the same row order: the sums agree exactly.
+        expect(Array.from(v.sums)).toEqual(Array.from(sums));
+        work.exactOwn(c);
+        const e = work.views();
+        for (let i = 0; i < m; i++) {
+          let s2 = 0;
+          for (let j = 0; j < k; j++) s2 += (x[i * k + j] - c[e.labels[i] * k + j]) ** 2;
+          expect(e.own[i]).toBeCloseTo(s2, 10);
+          expect(e.upper[i]).toBe(Math.sqrt(e.own[i]));
         }
       }),
       { numRuns: 60 },
+    );
+  });
+
+  it('lloydWork: after the centres move, the pruned pass (mode 1) gives the same labels, sums and counts as the plain pass (mode 2)', () => {
+    fc.assert(
+      fc.property(shapes, fc.double({ min: 0, max: 0.5, noNaN: true }), ({ m, n, k, seed }, step) => {
+        const { x, c, x2, c2 } = distanceFixture(m, n, k, seed, 5);
+        const z = noise(seed + 11);
+        const c1 = Float64Array.from(c, (v) => v + step * z());
+        const c12 = rowNorms2(c1, n, k);
+        const moved = new Float64Array(n);
+        for (let a = 0; a < n; a++) {
+          let s2 = 0;
+          for (let j = 0; j < k; j++) s2 += (c1[a * k + j] - c[a * k + j]) ** 2;
+          moved[a] = Math.sqrt(s2);
+        }
+        let m1 = 0;
+        let m2 = 0;
+        let mk = -1;
+        for (let a = 0; a < n; a++) {
+          if (moved[a] > m1) {
+            m2 = m1;
+            m1 = moved[a];
+            mk = a;
+          } else if (moved[a] > m2) m2 = moved[a];
+        }
+        const slackUnit = 8 * (k + 2) * 2 ** -52;
+        const slack0 = slackUnit * Math.max(...c12);
+        const run = (mode: 1 | 2) => {
+          const work = simd!.resident(x, x2, m, k).lloydWork(n);
+          work.reset();
+          work.pass(c, c2, new Float64Array(n), 0, 0, 0, -1, 0, 0);
+          const changed = work.pass(c1, c12, moved, mode, m1, m2, mk, slack0, slackUnit);
+          const v = work.views();
+          return { changed, labels: Array.from(v.labels), sums: Array.from(v.sums), counts: Array.from(v.counts) };
+        };
+        expect(run(1)).toEqual(run(2));
+      }),
+      { numRuns: 80 },
     );
   });
 
