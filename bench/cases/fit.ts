@@ -174,8 +174,8 @@ export async function run(argv: string[]): Promise<void> {
 
   // Distance pass throughput: 2 N K d flops per pass (one multiply and one add per term of x.c).
   console.log('\nk-means distance pass |x|^2 + |c|^2 - 2 x.c (median of 15 passes; GFLOP/s = 2 N K d / time, on wall and cpu time)');
-  console.log('rows prepared once, as Lloyd keeps them; js / wasm: all n x K distances into a reused buffer; wasm-asg: the');
-  console.log('pass Lloyd runs (distances, then nearest centre, its distance and the second smallest per row, all in the module)');
+  console.log('rows prepared once, as Lloyd keeps them; js / wasm: all n x K distances into a reused buffer; wasm-asg: a plain');
+  console.log('Lloyd pass in the module over every row (distances, nearest and second nearest centre, bounds, member sums)');
   console.log(`load per core: ${loadPerCore()}`);
   console.log(['N', 'd', 'K', 'kernel', 'ms/pass', 'GFLOP/s', 'cpu GF/s'].map((h) => pad(h, 9)).join(' '));
   const k = distanceKernels();
