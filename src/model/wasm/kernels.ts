@@ -83,6 +83,7 @@ interface Exports {
   seedUpdate(x: number, m: number, k: number, c: number, mind: number, first: number): number;
   cholesky(a: number, p: number): number;
   centreGaps(c: number, n: number, k: number, half: number): void;
+  padRows(p: number, n: number, w: number, we: number): void;
   lloydPass(x: number, x2: number, m: number, k: number, ct: number, c2: number, np: number, c: number,
     labels: number, upper: number, lower: number, own: number, todo: number, sums: number, counts: number, half: number, moved: number,
     mode: number, m1: number, m2: number, mk: number, slack0: number, slackUnit: number, dbuf: number, lab: number, best: number, second: number): number;
@@ -281,18 +282,9 @@ export function loadSimdKernels(): SimdKernels | null {
       reserve(pT + pe * CHUNK_ROWS * 8);
       const putRows = (src: Float64Array, w: number, we: number, at: number): void => {
         const o = at / 8;
-        if (we === w) {
-          f64.set(src.subarray(r0 * w, r1 * w), o);
-          return;
-        }
-        for (let i = 0; i < n; i++) {
-          const so = (r0 + i) * w;
-          const to = o + i * we;
-          // A subarray per row costs more than the copy itself for narrow rows.
-          if (w < 24) for (let j = 0; j < w; j++) f64[to + j] = src[so + j];
-          else f64.set(src.subarray(so, so + w), to);
-          f64[to + w] = 0;
-        }
+        // One copy of the block, then (odd widths) the rows spread to the even stride in the module.
+        f64.set(src.subarray(r0 * w, r1 * w), o);
+        if (we !== w) ex.padRows(at, n, w, we);
       };
       putRows(a, p, pe, pA);
       putRows(r, h, he, pR);

@@ -8,6 +8,7 @@
 ;; cholesky(a, p) -> 0 | i + 1:          in-place lower Cholesky factor (row-major)
 ;; cholSolve(l, p, b, h):               B := (L L^T)^-1 B in place (h even)
 ;; centreGaps(c, n, k, half):          half the distance from each centre to the nearest other one
+;; padRows(p, n, w, we):               n rows of w values at p spread in place to stride we (> w), pad zeroed
 ;; lloydPass(...):                      one pruned or full assignment pass of Lloyd's algorithm (state in memory)
 ;; expNeg(g, d, m, k, out):             out[i,j] = exp(-g[j] d[i,j])   (k even)
 ;; Pointers are byte offsets into the exported memory (16-byte aligned).
@@ -789,6 +790,21 @@
         (br $bloop)))
       (local.set $a (i32.add (local.get $a) (i32.const 1)))
       (br $aloop))))
+  ;; padRows(p, n, w, we): rows i = n-1 .. 0 moved from p + i w to p + i we (memmove; later rows
+  ;; first, so no row is overwritten before it moved), then the we - w pad values set to 0.
+  (func (export "padRows") (param $p i32) (param $n i32) (param $w i32) (param $we i32)
+    (local $i i32) (local $dst i32) (local $j i32)
+    (local.set $i (local.get $n))
+    (block $end (loop $loop (br_if $end (i32.le_s (local.get $i) (i32.const 0)))
+      (local.set $i (i32.sub (local.get $i) (i32.const 1)))
+      (local.set $dst (i32.add (local.get $p) (i32.shl (i32.mul (local.get $i) (local.get $we)) (i32.const 3))))
+      (memory.copy (local.get $dst) (i32.add (local.get $p) (i32.shl (i32.mul (local.get $i) (local.get $w)) (i32.const 3))) (i32.shl (local.get $w) (i32.const 3)))
+      (local.set $j (local.get $w))
+      (block $pend (loop $ploop (br_if $pend (i32.ge_s (local.get $j) (local.get $we)))
+        (f64.store (i32.add (local.get $dst) (i32.shl (local.get $j) (i32.const 3))) (f64.const 0))
+        (local.set $j (i32.add (local.get $j) (i32.const 1)))
+        (br $ploop)))
+      (br $loop))))
   ;; lloydPass: one assignment pass of Lloyd's algorithm over m rows of x (k columns) and the
   ;; centres (c row-major n x k; ct, c2 transposed and padded to np for the distance kernel), with
   ;; the run's state in module memory: labels, upper, lower, own (per row), sums (n x k), counts,
