@@ -6,7 +6,7 @@
 import type { Dense, FitHistoryEntry, FitOptions, FitReport, RbfModel } from './types.ts';
 import { ModelError } from './errors.ts';
 import { checkDense, checkInt, checkNumber } from './check.ts';
-import { kmeans } from './kmeans.ts';
+import { kmeansChecked } from './kmeans.ts';
 import { choleskySolve, factorRidge, type CholeskyFactor } from './linalg.ts';
 import { crossRows, crossWithSelf, matmul } from './blas.ts';
 import { gaussianActivations, logGammaGradient } from './rbf.ts';
@@ -174,7 +174,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
   const nTrain = nSamples - nVal;
 
   const warm = warmStartUsable(o.warmStart, nFeatures, K) ? o.warmStart : undefined;
-  const km = kmeans(x, {
+  const km = kmeansChecked(x, {
     nCentres: K,
     restarts: o.restarts,
     maxPasses: warm ? Math.min(o.maxPasses, o.warmMaxPasses) : o.maxPasses,
@@ -386,13 +386,18 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
   let spare: Float64Array = new Float64Array(nSamples * K);
   /** The alternation stopped because it converged (not because it ran out of iterations). */
   let converged = false;
+  // Scratch of the width steps (training rows x H), allocated once per fit.
+  const trainBlock = widthIterations > 0 ? nTrain * H : 0;
+  const baseBuf = new Float64Array(trainBlock);
+  const resBuf = new Float64Array(trainBlock);
+  const peBuf = new Float64Array(trainBlock);
 
   for (let it = 1; it <= widthIterations; it++) {
     // Residuals of the current weights on the training rows: base = Y - F W_F, r = base - E W_E.
     // base = Y - F W_F (in place over the product), r = base - E W_E.
-    const base = matmul(f.subarray(0, nTrain * nF), nTrain, nF, cur.wF, H);
+    const base = matmul(f.subarray(0, nTrain * nF), nTrain, nF, cur.wF, H, baseBuf);
     for (let i = 0; i < nTrain * H; i++) base[i] = yd[i] - base[i];
-    const resTrain = matmul(cur.e.subarray(0, nTrain * K), nTrain, K, cur.wE, H);
+    const resTrain = matmul(cur.e.subarray(0, nTrain * K), nTrain, K, cur.wE, H, resBuf);
     for (let i = 0; i < nTrain * H; i++) resTrain[i] = base[i] - resTrain[i];
     const gk = logGammaGradient(resTrain, cur.e, d2, nTrain, K, cur.gammas, cur.wE, H);
     const grad = new Float64Array(K);
@@ -421,7 +426,7 @@ export function fitRbf(x: Dense, y: Dense, options: FitOptions): { model: RbfMod
       const c = new Float64Array(K);
       for (let k = 0; k < K; k++) c[k] = cur.gammas[k] * Math.exp(-(t / gmax) * grad[k]);
       activations(c, 0, nTrain, spare);
-      const pe = matmul(spare, nTrain, K, cur.wE, H);
+      const pe = matmul(spare, nTrain, K, cur.wE, H, peBuf);
       let s = 0;
       for (let i = 0; i < nTrain * H; i++) {
         const v = base[i] - pe[i];

@@ -21,6 +21,11 @@ interface LloydRun {
 
 export function kmeans(x: Dense, opts: KMeansOptions): KMeansResult {
   checkDense(x, 'x');
+  return kmeansChecked(x, opts);
+}
+
+/** kmeans() for an x the caller has already passed through checkDense (the fit does). */
+export function kmeansChecked(x: Dense, opts: KMeansOptions): KMeansResult {
   const nSamples = x.rows;
   const nFeatures = x.cols;
   const nCentres = checkInt(opts.nCentres, 'opts.nCentres', 1);
@@ -103,18 +108,23 @@ function sampleIndices(rnd: Random, n: number, m: number): Int32Array {
 }
 
 function meanVariance(x: Float64Array, n: number, d: number): number {
-  let total = 0;
-  for (let j = 0; j < d; j++) {
-    let mean = 0;
-    for (let i = 0; i < n; i++) mean += x[i * d + j];
-    mean /= n;
-    let v = 0;
-    for (let i = 0; i < n; i++) {
-      const e = x[i * d + j] - mean;
-      v += e * e;
-    }
-    total += v / n;
+  // Row by row (cache-friendly); per column the additions run in row order, as a column loop would.
+  const mean = new Float64Array(d);
+  for (let i = 0; i < n; i++) {
+    const o = i * d;
+    for (let j = 0; j < d; j++) mean[j] += x[o + j];
   }
+  for (let j = 0; j < d; j++) mean[j] /= n;
+  const v = new Float64Array(d);
+  for (let i = 0; i < n; i++) {
+    const o = i * d;
+    for (let j = 0; j < d; j++) {
+      const e = x[o + j] - mean[j];
+      v[j] += e * e;
+    }
+  }
+  let total = 0;
+  for (let j = 0; j < d; j++) total += v[j] / n;
   return total / d;
 }
 

@@ -233,7 +233,7 @@ export function loadSimdKernels(): SimdKernels | null {
               f64.set(c.subarray(0, n * k), pC / 8);
               putCentres(c, c2, n, np, k, pCt, pC2);
               f64.set(moved.subarray(0, n), pMoved / 8);
-              if (mode !== 0) ex.centreGaps(pC, n, k, pHalf);
+              if (mode === 1) ex.centreGaps(pC, n, k, pHalf);
               return ex.lloydPass(px, px2, m, k, pCt, pC2, np, pC, pLab, pUp, pLo, pOwn, pTodo, pSums, pCnt, pHalf, pMoved, mode, m1, m2, mk, slack0, slackUnit, pD, pL, pB, pS);
             },
             exactOwn(c) {
