@@ -21,6 +21,8 @@ import { flagValue, median } from '../args.ts';
 import { mulberry32 } from '../../src/model/random.ts';
 
 const H = 24;
+/** Timed work per cell and kind (cold / warm), beside the minimum number of runs. */
+const MIN_TIMED_MS = 1500;
 const here = path.dirname(fileURLToPath(import.meta.url));
 const refDir = path.resolve(here, '..', '..', '..', 'shared', 'reference');
 const python = '/usr/bin/python3';
@@ -98,12 +100,17 @@ function runReference(impl: 'own' | 'sklearn', dataDir: string, N: number, d: nu
  * Wall and CPU milliseconds of n runs after warm-up: at least 3 runs and 1 s, so the JIT has
  * optimised the TypeScript and tiered up the WebAssembly (a daemon runs thousands of fits).
  */
-function timeFits(n: number, f: () => void): { wall: number[]; cpu: number[] } {
+/**
+ * At least n timed runs and at least minMs of timed work (short fits get more runs, so one
+ * disturbed run on this shared machine moves the median less), after >= 3 warm-up runs and 1 s.
+ */
+function timeFits(n: number, f: () => void, minMs = MIN_TIMED_MS): { wall: number[]; cpu: number[] } {
   const w0 = performance.now();
   for (let i = 0; i < 3 || performance.now() - w0 < 1000; i++) f();
   const wall: number[] = [];
   const cpu: number[] = [];
-  for (let i = 0; i < n; i++) {
+  const t1 = performance.now();
+  for (let i = 0; i < n || performance.now() - t1 < minMs; i++) {
     const c0 = process.cpuUsage();
     const t0 = performance.now();
     f();
@@ -140,7 +147,7 @@ export async function run(argv: string[]): Promise<void> {
       if (g.status === 0) source = `gen_data.py (${refDir})`;
     }
     const fromPython = source.startsWith('gen_data');
-    console.log(`data: ${source}; runs per cell: ${runs} (after >= 3 warm-up runs and 1 s); H=${H}; kernel: ${distanceKernels().active}`);
+    console.log(`data: ${source}; runs per cell: >= ${runs} and >= ${MIN_TIMED_MS / 1000} s of timed fits (after >= 3 warm-up runs and 1 s); H=${H}; kernel: ${distanceKernels().active}`);
     console.log('medians in ms, wall (cpu); ratio = reference / radcast on wall (cpu) time, >1: radcast faster; cold/warm likewise');
     console.log(`load per core at start: ${loadPerCore()} (above ~1 the machine is shared and wall times are inflated; compare cpu)`);
     const head = ['N', 'd', 'K', 'cold', 'passes', 'warm', 'passes', 'cold/warm'];
@@ -173,7 +180,7 @@ export async function run(argv: string[]): Promise<void> {
   }
 
   // Distance pass throughput: 2 N K d flops per pass (one multiply and one add per term of x.c).
-  console.log('\nk-means distance pass |x|^2 + |c|^2 - 2 x.c (median of 15 passes; GFLOP/s = 2 N K d / time, on wall and cpu time)');
+  console.log('\nk-means distance pass |x|^2 + |c|^2 - 2 x.c (median of >= 15 passes and >= 1 s; GFLOP/s = 2 N K d / time, on wall and cpu time)');
   console.log('rows prepared once, as Lloyd keeps them; js / wasm: all n x K distances into a reused buffer; wasm-asg: a plain');
   console.log('Lloyd pass in the module over every row (distances, nearest and second nearest centre, bounds, member sums)');
   console.log(`load per core: ${loadPerCore()}`);
@@ -184,7 +191,7 @@ export async function run(argv: string[]): Promise<void> {
     const c = x.data.slice(0, K * d);
     for (const [name, prepare] of k.all) {
       const pass = prepare(x.data, N, d);
-      const t = timeFits(15, () => pass(c, K));
+      const t = timeFits(15, () => pass(c, K), 1000);
       const ms = median(t.wall);
       const cms = median(t.cpu);
       const gf = (v: number): string => ((2 * N * K * d) / (v * 1e6)).toFixed(2);

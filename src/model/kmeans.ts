@@ -56,10 +56,9 @@ export function kmeansChecked(x: Dense, opts: KMeansOptions): KMeansResult {
     nWork = subsampleRows;
   }
   const x2 = rowNorms2(work, nWork, nFeatures);
-  // Shift tolerance is relative to the data's spread: tol * mean feature variance.
-  const tolAbs = tol * meanVariance(work, nWork, nFeatures);
-
   const pass = distancePass(work, x2, nWork, nFeatures);
+  // Shift tolerance is relative to the data's spread: tol * mean feature variance.
+  const tolAbs = tol * pass.meanVariance();
   const how: LloydOptions = { trackInertia: opts.trackInertia === true, prune: opts.prune !== false };
   let best: LloydRun | null = null;
   if (opts.initialCentres !== undefined) {
@@ -108,23 +107,18 @@ function sampleIndices(rnd: Random, n: number, m: number): Int32Array {
 }
 
 function meanVariance(x: Float64Array, n: number, d: number): number {
-  // Row by row (cache-friendly); per column the additions run in row order, as a column loop would.
-  const mean = new Float64Array(d);
-  for (let i = 0; i < n; i++) {
-    const o = i * d;
-    for (let j = 0; j < d; j++) mean[j] += x[o + j];
-  }
-  for (let j = 0; j < d; j++) mean[j] /= n;
-  const v = new Float64Array(d);
-  for (let i = 0; i < n; i++) {
-    const o = i * d;
-    for (let j = 0; j < d; j++) {
-      const e = x[o + j] - mean[j];
-      v[j] += e * e;
-    }
-  }
   let total = 0;
-  for (let j = 0; j < d; j++) total += v[j] / n;
+  for (let j = 0; j < d; j++) {
+    let mean = 0;
+    for (let i = 0; i < n; i++) mean += x[i * d + j];
+    mean /= n;
+    let v = 0;
+    for (let i = 0; i < n; i++) {
+      const e = x[i * d + j] - mean;
+      v += e * e;
+    }
+    total += v / n;
+  }
   return total / d;
 }
 
@@ -136,6 +130,8 @@ interface DistancePass {
   seed(centre: Float64Array, first: boolean): { total: number; minD2: Float64Array };
   /** State and assignment passes of a Lloyd run with K centres. */
   lloyd(K: number): LloydWork;
+  /** Mean over the features of each feature's variance. */
+  meanVariance(): number;
 }
 
 /** Nearest centre, its squared distance and the second smallest one, per listed row. */
@@ -153,6 +149,7 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
       all: (c, c2, K, out) => res.dist2(c, c2, K, out),
       seed: (centre, first) => res.seedUpdate(centre, first),
       lloyd: (K) => res.lloydWork(K),
+      meanVariance: () => res.meanVariance(),
     };
   }
   const minD2 = new Float64Array(n);
@@ -176,6 +173,7 @@ function distancePass(x: Float64Array, x2: Float64Array, n: number, d: number): 
       return { total, minD2 };
     },
     lloyd: (K) => scalarLloydWork(x, x2, n, d, K),
+    meanVariance: () => meanVariance(x, n, d),
   };
 }
 

@@ -35,6 +35,8 @@ export interface LloydWork {
 
 /** Rows kept in the module's memory across calls (one k-means run): distances and assignment. */
 export interface ResidentRows {
+  /** Mean over the columns of each column's variance (population), as the scalar column loops compute it. */
+  meanVariance(): number;
   /** The state and passes of a Lloyd run with n centres (one at a time per resident). */
   lloydWork(n: number): LloydWork;
   /** out (m x n) = squared distances of the rows to the n centres. */
@@ -84,6 +86,7 @@ interface Exports {
   cholesky(a: number, p: number): number;
   centreGaps(c: number, n: number, k: number, half: number): void;
   padRows(p: number, n: number, w: number, we: number): void;
+  meanVariance(x: number, m: number, k: number, acc: number): number;
   lloydPass(x: number, x2: number, m: number, k: number, ct: number, c2: number, np: number, c: number,
     labels: number, upper: number, lower: number, own: number, todo: number, sums: number, counts: number, half: number, moved: number,
     mode: number, m1: number, m2: number, mk: number, slack0: number, slackUnit: number, dbuf: number, lab: number, best: number, second: number): number;
@@ -183,6 +186,11 @@ export function loadSimdKernels(): SimdKernels | null {
           f64.set(c.subarray(0, k), pc / 8);
           const total = ex.seedUpdate(px, m, k, pc, pm, first ? 1 : 0);
           return { total, minD2: f64.subarray(pm / 8, pm / 8 + m) };
+        },
+        meanVariance() {
+          reserve(base + 2 * k * 8);
+          if (owner !== token) upload();
+          return ex.meanVariance(px, m, k, base);
         },
         lloydWork(n) {
           const np = n + (n & 1);

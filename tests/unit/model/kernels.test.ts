@@ -66,6 +66,17 @@ describe('SIMD kernels', () => {
         // Resident rows: full pass and k-means++ step (the Lloyd passes: their own test).
         const res = simd!.resident(x, x2, m, k);
         expect(Array.from(res.dist2(c, c2, n, new Float64Array(m * n)))).toEqual(Array.from(ref));
+        // Mean feature variance: the plain column loops, bit for bit (each column sums in row order).
+        let varTotal = 0;
+        for (let j = 0; j < k; j++) {
+          let mean = 0;
+          for (let i = 0; i < m; i++) mean += x[i * k + j];
+          mean /= m;
+          let v = 0;
+          for (let i = 0; i < m; i++) v += (x[i * k + j] - mean) * (x[i * k + j] - mean);
+          varTotal += v / m;
+        }
+        expect(res.meanVariance()).toBe(varTotal / k);
         const step = res.seedUpdate(c.subarray(0, k), true);
         const step2 = res.seedUpdate(c.subarray(k * (n - 1), k * n), false);
         let total = 0;
