@@ -74,14 +74,13 @@ export function kmeansChecked(x: Dense, opts: KMeansOptions): KMeansResult {
 
   // Distances of every row to the winning centres (the fit builds its Gaussians from them).
   let { labels, inertia } = best;
-  const c2 = rowNorms2(best.centres, nCentres, nFeatures);
   let dist2: Float64Array;
   if (sub) {
     dist2 = dist2All(x.data, nSamples, nFeatures, best.centres, nCentres);
     labels = new Int32Array(nSamples);
     inertia = argminRows(dist2, nSamples, nCentres, labels, new Float64Array(nSamples));
   } else {
-    dist2 = pass.all(best.centres, c2, nCentres, new Float64Array(nSamples * nCentres));
+    dist2 = pass.all(best.centres, rowNorms2(best.centres, nCentres, nFeatures), nCentres, new Float64Array(nSamples * nCentres));
   }
   return {
     centres: { data: best.centres, rows: nCentres, cols: nFeatures },

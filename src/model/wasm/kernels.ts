@@ -89,7 +89,7 @@ interface Exports {
   meanVariance(x: number, m: number, k: number, acc: number): number;
   lloydPass(x: number, x2: number, m: number, k: number, ct: number, c2: number, np: number, c: number,
     labels: number, upper: number, lower: number, own: number, todo: number, sums: number, counts: number, half: number, moved: number,
-    mode: number, m1: number, m2: number, mk: number, slack0: number, slackUnit: number, dbuf: number, lab: number, best: number, second: number, hints: number): number;
+    mode: number, m1: number, m2: number, mk: number, slack0: number, slackUnit: number, dbuf: number, lab: number, best: number, second: number): number;
   cholSolve(l: number, p: number, b: number, h: number): void;
   expNeg(g: number, d: number, m: number, k: number, out: number): void;
 }
@@ -204,7 +204,7 @@ export function loadSimdKernels(): SimdKernels | null {
           };
           const pLab = take(m * 4), pUp = take(m * 8), pLo = take(m * 8), pOwn = take(m * 8), pTodo = take(m * 4);
           const pSums = take(n * k * 8), pCnt = take(n * 4), pHalf = take(n * 8), pMoved = take(n * 8), pC = take(n * k * 8);
-          const pCt = take(k * np * 8), pC2 = take(np * 8), pD = take(32 * np * 8), pL = take(32 * 4), pB = take(32 * 8), pS = take(32 * 8), pH = take(32 * 4);
+          const pCt = take(k * np * 8), pC2 = take(np * 8), pD = take(32 * np * 8), pL = take(32 * 4), pB = take(32 * 8), pS = take(32 * 8);
           base = o;
           reserve(base);
           if (owner !== token) upload();
@@ -242,7 +242,7 @@ export function loadSimdKernels(): SimdKernels | null {
               putCentres(c, c2, n, np, k, pCt, pC2);
               f64.set(moved.subarray(0, n), pMoved / 8);
               if (mode === 1) ex.centreGaps(pC, n, k, pHalf);
-              return ex.lloydPass(px, px2, m, k, pCt, pC2, np, pC, pLab, pUp, pLo, pOwn, pTodo, pSums, pCnt, pHalf, pMoved, mode, m1, m2, mk, slack0, slackUnit, pD, pL, pB, pS, pH);
+              return ex.lloydPass(px, px2, m, k, pCt, pC2, np, pC, pLab, pUp, pLo, pOwn, pTodo, pSums, pCnt, pHalf, pMoved, mode, m1, m2, mk, slack0, slackUnit, pD, pL, pB, pS);
             },
             exactOwn(c) {
               mine();

@@ -710,8 +710,8 @@
   ;; column holding it, and the second smallest value (equal to the smallest on ties; Infinity for
   ;; one real column next to the +Infinity pad). Per lane the two smallest are kept with pmin/pmax
   ;; (one instruction each; the same as min/max here: distances are never NaN and never -0).
-  (func $argmin2 (param $d i32) (param $m i32) (param $n i32) (param $lab i32) (param $best i32) (param $second i32) (param $hint i32) (param $useHint i32)
-    (local $i i32) (local $k i32) (local $h i32) (local $l0 f64) (local $l1 f64) (local $o i32) (local $nb i32) (local $nb2 i32) (local $v v128) (local $w v128) (local $lo v128) (local $hi v128) (local $lo1 v128) (local $hi1 v128) (local $b1 f64) (local $b2 f64) (local $s v128)
+  (func $argmin2 (param $d i32) (param $m i32) (param $n i32) (param $lab i32) (param $best i32) (param $second i32) 
+    (local $i i32) (local $k i32) (local $l0 f64) (local $l1 f64) (local $o i32) (local $nb i32) (local $nb2 i32) (local $v v128) (local $w v128) (local $lo v128) (local $hi v128) (local $lo1 v128) (local $hi1 v128) (local $b1 f64) (local $b2 f64) (local $s v128)
     (local.set $nb (i32.shl (local.get $n) (i32.const 3)))
     (local.set $nb2 (i32.and (local.get $nb) (i32.const -32)))
     (block $iend (loop $iloop (br_if $iend (i32.ge_s (local.get $i) (local.get $m)))
@@ -746,24 +746,17 @@
       (local.set $l1 (f64x2.extract_lane 1 (local.get $hi)))
       (local.set $l0 (select (local.get $l0) (local.get $l1) (f64.lt (local.get $l0) (local.get $l1))))
       (local.set $b2 (select (local.get $b2) (local.get $l0) (f64.lt (local.get $b2) (local.get $l0))))
-      ;; first column equal to the smallest value: the hinted column (the row's current label) when
-      ;; it holds the smallest value and that value is unique (b1 < b2), else a scan from column 0
-      (local.set $h (i32.const -1))
-      (if (i32.and (local.get $useHint) (f64.lt (local.get $b1) (local.get $b2))) (then
-        (local.set $h (i32.load (i32.add (local.get $hint) (i32.shl (local.get $i) (i32.const 2)))))
-        (if (i32.ge_s (local.get $h) (i32.const 0)) (then
-          (if (f64.ne (f64.load (i32.add (local.get $o) (i32.shl (local.get $h) (i32.const 3)))) (local.get $b1)) (then (local.set $h (i32.const -1))))))))
-      (if (i32.lt_s (local.get $h) (i32.const 0)) (then
-        (local.set $s (f64x2.splat (local.get $b1)))
-        (local.set $k (i32.const 0))
-        (block $fend (loop $floop
-          (local.set $v (f64x2.eq (v128.load (i32.add (local.get $o) (local.get $k))) (local.get $s)))
-          (br_if $fend (v128.any_true (local.get $v)))
-          (local.set $k (i32.add (local.get $k) (i32.const 16)))
-          (br $floop)))
-        (local.set $h (i32.shr_u (local.get $k) (i32.const 3)))
-        (if (i64.eqz (i64x2.extract_lane 0 (local.get $v))) (then (local.set $h (i32.add (local.get $h) (i32.const 1)))))))
-      (i32.store (i32.add (local.get $lab) (i32.shl (local.get $i) (i32.const 2))) (local.get $h))
+      ;; first column equal to the smallest value
+      (local.set $s (f64x2.splat (local.get $b1)))
+      (local.set $k (i32.const 0))
+      (block $fend (loop $floop
+        (local.set $v (f64x2.eq (v128.load (i32.add (local.get $o) (local.get $k))) (local.get $s)))
+        (br_if $fend (v128.any_true (local.get $v)))
+        (local.set $k (i32.add (local.get $k) (i32.const 16)))
+        (br $floop)))
+      (local.set $k (i32.shr_u (local.get $k) (i32.const 3)))
+      (if (i64.eqz (i64x2.extract_lane 0 (local.get $v))) (then (local.set $k (i32.add (local.get $k) (i32.const 1)))))
+      (i32.store (i32.add (local.get $lab) (i32.shl (local.get $i) (i32.const 2))) (local.get $k))
       (f64.store (i32.add (local.get $best) (i32.shl (local.get $i) (i32.const 3))) (local.get $b1))
       (f64.store (i32.add (local.get $second) (i32.shl (local.get $i) (i32.const 3))) (local.get $b2))
       (local.set $i (i32.add (local.get $i) (i32.const 1)))
@@ -884,7 +877,7 @@
       (param $labels i32) (param $upper i32) (param $lower i32) (param $own i32)
       (param $todo i32) (param $sums i32) (param $counts i32) (param $half i32) (param $moved i32)
       (param $mode i32) (param $m1 f64) (param $m2 f64) (param $mk i32) (param $slack0 f64) (param $slackUnit f64)
-      (param $dbuf i32) (param $lab i32) (param $best i32) (param $second i32) (param $hints i32) (result i32)
+      (param $dbuf i32) (param $lab i32) (param $best i32) (param $second i32) (result i32)
     (local $r i32) (local $q i32) (local $cnt i32) (local $ch i32) (local $a i32) (local $bk i32) (local $old i32)
     (local $pc i32) (local $l i32) (local $k2 i32) (local $pa i32) (local $ps i32) (local $px i32) (local $st i32) (local $cm i32) (local $useIdx i32)
     (local $acc v128) (local $e v128) (local $s f64) (local $t f64) (local $u f64) (local $lw f64) (local $z f64) (local $pcnt i32)
@@ -939,17 +932,7 @@
           (i32.const 1) (local.get $x2) (local.get $c2) (i32.add (local.get $todo) (i32.shl (local.get $st) (i32.const 2)))))
         (else (call $kernelDist (i32.add (local.get $x) (i32.shl (i32.mul (local.get $st) (local.get $k)) (i32.const 3))) (local.get $cm) (local.get $k) (local.get $ct) (local.get $np) (local.get $dbuf)
           (i32.const 1) (i32.add (local.get $x2) (i32.shl (local.get $st) (i32.const 3))) (local.get $c2) (i32.const 0))))
-      ;; the rows' current labels as hints for the nearest-centre search (none on the first pass)
-      (if (local.get $mode) (then
-        (local.set $q (i32.const 0))
-        (block $hend (loop $hloop (br_if $hend (i32.ge_s (local.get $q) (local.get $cm)))
-          (local.set $r (if (result i32) (local.get $useIdx)
-            (then (i32.load (i32.add (local.get $todo) (i32.shl (i32.add (local.get $st) (local.get $q)) (i32.const 2)))))
-            (else (i32.add (local.get $st) (local.get $q)))))
-          (i32.store (i32.add (local.get $hints) (i32.shl (local.get $q) (i32.const 2))) (i32.load (i32.add (local.get $labels) (i32.shl (local.get $r) (i32.const 2)))))
-          (local.set $q (i32.add (local.get $q) (i32.const 1)))
-          (br $hloop)))))
-      (call $argmin2 (local.get $dbuf) (local.get $cm) (local.get $np) (local.get $lab) (local.get $best) (local.get $second) (local.get $hints) (i32.ne (local.get $mode) (i32.const 0)))
+      (call $argmin2 (local.get $dbuf) (local.get $cm) (local.get $np) (local.get $lab) (local.get $best) (local.get $second))
       (local.set $q (i32.const 0))
       (block $qend (loop $qloop (br_if $qend (i32.ge_s (local.get $q) (local.get $cm)))
         (local.set $r (if (result i32) (local.get $useIdx)
